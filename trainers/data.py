@@ -1,0 +1,505 @@
+"""Read and check a daily price file: date, open, high, low, close, and optional numeric extras.
+
+This is the one module in ``trainers/`` that opens a file. ``load_prices`` reads a CSV, checks every
+row and reports every problem it finds (with the file line, header = line 1, and the date) in one
+``PriceFileError``. Nothing is repaired silently: ``bad_rows="drop"`` opts into dropping bad rows, and
+the dropped rows are listed in ``PriceData.dropped``. ``check_prices`` runs the row checks on a frame
+that is already parsed. ``frame_to_csv_text`` and ``read_prices_csv_text`` turn a checked frame into
+the text copy kept in the record and back, exactly (floats written with repr precision).
+
+Example:
+    >>> data = load_prices("prices.csv", min_rows=300)        # doctest: +SKIP
+    >>> data.frame.columns.tolist()[:4]                        # doctest: +SKIP
+    ['open', 'high', 'low', 'close']
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import hashlib
+import io
+import math
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+__all__ = [
+    "REQUIRED_COLUMNS", "DATE_COLUMN", "BAD_ROWS", "Problem", "PriceFileError", "PriceData",
+    "load_prices", "check_prices", "read_prices_csv_text", "frame_to_csv_text", "sha256_file",
+]
+
+REQUIRED_COLUMNS = ("open", "high", "low", "close")
+DATE_COLUMN = "date"
+BAD_ROWS = ("error", "drop")
+DATE_UNIT = "us"                 # resolution of every DatetimeIndex this module returns
+MAX_LISTED = 10                  # problems shown in str(PriceFileError)
+DATE_FORMATS = {                 # formats recognised when date_format is not given, first wins ties
+    "%Y-%m-%d": "YYYY-MM-DD", "%Y/%m/%d": "YYYY/MM/DD", "%Y%m%d": "YYYYMMDD",
+    "%d.%m.%Y": "DD.MM.YYYY", "%d/%m/%Y": "DD/MM/YYYY", "%m/%d/%Y": "MM/DD/YYYY", "%d-%m-%Y": "DD-MM-YYYY",
+}
+NUMBER_RE = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?")
+NAN_WORDS = frozenset({"nan", "-nan", "+nan"})
+INF_WORDS = frozenset({"inf", "+inf", "-inf", "infinity", "+infinity", "-infinity"})
+MISSING_WORDS = frozenset({"na", "n/a", "#n/a", "null", "none", "nil", "-"})
+FIX_DATE = "write every date as YYYY-MM-DD (or pass date_format=...)"
+
+
+@dataclass(frozen=True)
+class Problem:
+    """One thing wrong with a price file or frame.
+
+    Attributes:
+        message: what is wrong, with the value received.
+        fix: how to put it right.
+        line: 1-based line in the file (header = line 1), or None for the whole file.
+        date: the row's date as written, when known.
+        column: the column concerned, when one is.
+    """
+
+    message: str
+    fix: str
+    line: int | None = None
+    date: str | None = None
+    column: str | None = None
+
+    def __str__(self) -> str:
+        where = []
+        if self.line is not None:
+            where.append(f"line {self.line}" + (f" (date {self.date})" if self.date else ""))
+        if self.column is not None:
+            where.append(f"column {self.column}")
+        head = ", ".join(where)
+        return f"{head + ': ' if head else ''}{self.message}; fix: {self.fix}"
+
+
+class PriceFileError(ValueError):
+    """A price file (or frame) failed its checks; ``problems`` lists every problem found.
+
+    Attributes:
+        source: the file named in the message.
+        problems: every problem, in file order, structural ones first.
+    """
+
+    def __init__(self, source: str, problems: Sequence[Problem]):
+        self.source = str(source)
+        self.problems = list(problems)
+        super().__init__(self._text())
+
+    def _head(self) -> str:
+        n = len(self.problems)
+        return f"price file {self.source} has {n} problem{'s' if n != 1 else ''}"
+
+    def _text(self) -> str:
+        lines = [self._head()] + [f"  {p}" for p in self.problems[:MAX_LISTED]]
+        if len(self.problems) > MAX_LISTED:
+            lines.append(f"  ... and {len(self.problems) - MAX_LISTED} more")
+        return "\n".join(lines)
+
+    def summary(self) -> str:
+        """One line for the CLI: the file, the count and the first problem."""
+        first = f"; first: {self.problems[0]}" if self.problems else ""
+        more = len(self.problems) - 1
+        rest = f" (and {more} more)" if more > 0 else ""
+        return f"{self._head()}{first}{rest}"
+
+
+@dataclass(frozen=True)
+class PriceData:
+    """A checked price file.
+
+    Attributes:
+        frame: DatetimeIndex named "date"; float64 columns open, high, low, close, then the file's
+            other numeric columns (lower-case names) in file order.
+        source: the resolved path of the file.
+        sha256: SHA-256 (hex) of the file bytes.
+        dropped: the problems of rows dropped under ``bad_rows="drop"`` (empty otherwise).
+    """
+
+    frame: pd.DataFrame
+    source: str
+    sha256: str
+    dropped: tuple[Problem, ...] = field(default=())
+
+
+def sha256_file(path: str | Path) -> str:
+    """SHA-256 (hex) of a file's bytes."""
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def load_prices(path: str | Path, *, columns: Mapping[str, str] | None = None, bad_rows: str = "error",
+                min_rows: int = 0, date_format: str | None = None,
+                ignore_columns: Sequence[str] = ()) -> PriceData:
+    """Read a daily price CSV and check every row.
+
+    Args:
+        path: the CSV file. Headers are matched case-insensitively after stripping spaces.
+        columns: our name -> the file's header, for files that name columns otherwise, e.g.
+            ``{"close": "Adj Close", "date": "Day"}``. Extra names map extra columns.
+        bad_rows: "error" (raise on any problem) or "drop" (drop bad rows, list them in ``dropped``;
+            problems with the file as a whole still raise).
+        min_rows: fewest rows the features asked for need.
+        date_format: a strptime format for the date column; by default one of ``DATE_FORMATS``,
+            the same for every row.
+        ignore_columns: headers of columns to leave out.
+
+    Returns:
+        PriceData with the frame, the resolved source, the file's SHA-256 and the dropped rows.
+
+    Raises:
+        PriceFileError: listing every problem found, each with its line and date.
+        ValueError: for a bad argument (bad_rows, min_rows).
+    """
+    path = Path(path)
+    source = str(path.resolve())
+    if not path.is_file():
+        what = "is a directory" if path.is_dir() else "does not exist"
+        raise PriceFileError(source, [Problem(f"the path {what}", "give the path of a CSV price file")])
+    raw = path.read_bytes()
+    frame, dropped = _parse_bytes(raw, source, columns=columns, bad_rows=bad_rows, min_rows=min_rows,
+                                  date_format=date_format, ignore_columns=ignore_columns)
+    return PriceData(frame=frame, source=source, sha256=hashlib.sha256(raw).hexdigest(), dropped=dropped)
+
+
+def read_prices_csv_text(text: str, *, source: str = "<text>", **kwargs) -> pd.DataFrame:
+    """Parse and check price CSV text (the record's copy of rows); the inverse of ``frame_to_csv_text``.
+
+    Args:
+        text: CSV text as written by ``frame_to_csv_text`` (or any price file's text).
+        source: the name used in error messages.
+        **kwargs: as for ``load_prices`` (columns, bad_rows, min_rows, date_format, ignore_columns).
+
+    Returns:
+        The checked frame, as ``load_prices(...).frame``.
+
+    Raises:
+        PriceFileError: listing every problem.
+    """
+    frame, _ = _parse_bytes(text.encode("utf-8"), source, **kwargs)
+    return frame
+
+
+def frame_to_csv_text(frame: pd.DataFrame) -> str:
+    """Write a price frame as CSV text: "date" first (YYYY-MM-DD), floats at repr precision, "\\n" ends.
+
+    Raises:
+        ValueError: if the index is not a DatetimeIndex of whole days.
+    """
+    index = frame.index
+    if not isinstance(index, pd.DatetimeIndex):
+        raise ValueError(f"frame index must be a DatetimeIndex, got {type(index).__name__}; "
+                         "set the dates as the index (frame.set_index('date'))")
+    if index.hasnans or (index != index.normalize()).any():
+        raise ValueError("frame index must hold whole days without NaT; daily prices have no time of day")
+    out = frame.copy()
+    out.index = out.index.rename(DATE_COLUMN)
+    return out.to_csv(float_format=None, date_format="%Y-%m-%d", lineterminator="\n")
+
+
+def check_prices(frame: pd.DataFrame, *, min_rows: int = 0, lines: Sequence[int] | None = None) -> list[Problem]:
+    """Check a parsed price frame; return every problem (an empty list when it is clean).
+
+    Args:
+        frame: DatetimeIndex; columns open, high, low, close (lower case) and optional numeric extras.
+        min_rows: fewest rows the features asked for need.
+        lines: the file line of each row; by default row i is line i + 2 (as ``frame_to_csv_text``
+            writes it, header = line 1).
+
+    Returns:
+        Problems in row order, whole-frame problems first.
+    """
+    if isinstance(min_rows, bool) or not isinstance(min_rows, (int, np.integer)) or min_rows < 0:
+        raise ValueError(f"min_rows must be an integer >= 0, got {min_rows=!r}")
+    problems = []
+    missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
+    if missing:
+        return [_missing_column(c, [str(h) for h in frame.columns], None) for c in missing]
+    if not isinstance(frame.index, pd.DatetimeIndex):
+        return [Problem(f"the index is {type(frame.index).__name__}, not dates",
+                        "set a DatetimeIndex of the trading days")]
+    n = len(frame)
+    line_no = np.arange(2, n + 2) if lines is None else np.asarray(lines)
+    dates = frame.index.as_unit(DATE_UNIT)
+    texts = [t if isinstance(t, str) else "" for t in dates.strftime("%Y-%m-%d")]
+    values, bad = {}, {}
+    for col in frame.columns:
+        s = frame[col]
+        if not (pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)):
+            problems.append(Problem(f"column is not numeric (dtype {s.dtype})",
+                                    "drop the column or convert it to numbers", column=str(col)))
+            continue
+        values[str(col)] = s.to_numpy(dtype=float)
+        bad[str(col)] = np.zeros(n, bool)
+    if any(c not in values for c in REQUIRED_COLUMNS):
+        return problems
+    for i in np.flatnonzero(dates.isna()):
+        problems.append(Problem("missing date (NaT)", FIX_DATE, int(line_no[i])))
+    problems += _size_problems(n, min_rows)
+    problems += _row_problems(dates, values, bad, line_no, texts)
+    return _sorted(problems)
+
+
+def _sorted(problems: list[Problem]) -> list[Problem]:
+    return sorted(problems, key=lambda p: -1 if p.line is None else p.line)
+
+
+def _size_problems(n: int, min_rows: int) -> list[Problem]:
+    if n == 0:
+        return [Problem("there are no data rows, only a header", "add rows of daily prices below the header")]
+    if n < min_rows:
+        return [Problem(f"only {n} rows, fewer than min_rows={min_rows} that the features asked for need",
+                        "use a longer price history, or shorter HAR windows / horizons / lags")]
+    return []
+
+
+def _row_problems(dates, values: dict, bad: dict, line_no, texts) -> list[Problem]:
+    """Non-finite, non-positive, OHLC bound and date order problems; ``bad`` marks cells reported already."""
+    out = []
+
+    def add(i, message, fix, column=None):
+        out.append(Problem(message, fix, int(line_no[i]), texts[i] or None, column))
+
+    for col, v in values.items():
+        fresh = ~bad[col]
+        for i in np.flatnonzero(np.isnan(v) & fresh):
+            add(i, "NaN value", "fill in the value or drop the row", col)
+        for i in np.flatnonzero(np.isinf(v) & fresh):
+            add(i, f"infinite value ({float(v[i])!r})", "fill in a finite value or drop the row", col)
+    o, h, lo, c = (values[k] for k in REQUIRED_COLUMNS)
+    with np.errstate(invalid="ignore"):
+        for col in REQUIRED_COLUMNS:
+            for i in np.flatnonzero(values[col] <= 0):
+                add(i, f"price not positive ({float(values[col][i])!r})", "correct the price or drop the row", col)
+        ok = np.isfinite(o) & np.isfinite(h) & np.isfinite(lo) & np.isfinite(c) & (o > 0) & (h > 0)
+        ok &= (lo > 0) & (c > 0)
+        top, bottom = np.maximum(o, c), np.minimum(o, c)
+        for i in np.flatnonzero(ok & (h < top)):
+            add(i, f"high {float(h[i])!r} below max(open, close) = {float(top[i])!r}",
+                "correct high (high >= open, close) or drop the row", "high")
+        for i in np.flatnonzero(ok & (lo > bottom)):
+            add(i, f"low {float(lo[i])!r} above min(open, close) = {float(bottom[i])!r}",
+                "correct low (low <= open, close) or drop the row", "low")
+    first_seen, latest, latest_i = {}, None, None
+    nat = pd.NaT.value
+    for i, key in enumerate(pd.DatetimeIndex(dates).asi8.tolist()):
+        if key == nat:
+            continue
+        d = key
+        if key in first_seen:
+            add(i, f"duplicate date, also on line {int(line_no[first_seen[key]])}",
+                "keep one row per date", DATE_COLUMN)
+        elif latest is not None and d < latest:
+            add(i, f"dates not strictly increasing: earlier than {texts[latest_i]} on line "
+                   f"{int(line_no[latest_i])}", "sort the file by date, oldest first", DATE_COLUMN)
+        if key not in first_seen:
+            first_seen[key] = i
+        if latest is None or d > latest:
+            latest, latest_i = d, i
+    return out
+
+
+def _missing_column(name: str, headers: list[str], mapped: str | None) -> Problem:
+    asked = mapped if mapped is not None else name
+    near = difflib.get_close_matches(asked.lower(), [h.lower() for h in headers], n=1, cutoff=0.5)
+    found = f"; nearest header found: {headers[[h.lower() for h in headers].index(near[0])]!r}" if near else ""
+    if mapped is not None:
+        return Problem(f"columns maps {name!r} to {mapped!r}, which is not in the header{found}",
+                       "fix the header named in columns=", column=name)
+    hint = near[0] if near else "YOUR_HEADER"
+    if name == DATE_COLUMN and "" in headers:
+        return Problem(f"missing required column {name!r}; column {headers.index('') + 1} has no header",
+                       f"name that column {name!r} in the header, or pass columns={{{name!r}: ''}}", column=name)
+    return Problem(f"missing required column {name!r}{found}",
+                   f"rename the header to {name!r} or pass columns={{{name!r}: {hint!r}}}", column=name)
+
+
+def _decode(raw: bytes) -> tuple[str | None, list[Problem]]:
+    if not raw.strip():
+        return None, [Problem("the file is empty", "write a header line and daily rows into it")]
+    if raw[:4] == b"PK\x03\x04":
+        return None, [Problem("the file is a zip archive (perhaps a spreadsheet), not CSV text",
+                              "export the sheet as comma-separated values (CSV)")]
+    if b"\x00" in raw[:65536]:
+        return None, [Problem("the file holds binary data (NUL bytes), not CSV text",
+                              "give a comma-separated text file")]
+    try:
+        return raw.decode("utf-8-sig"), []
+    except UnicodeDecodeError as err:
+        return None, [Problem(f"the file is not UTF-8 text (byte {raw[err.start]:#04x} at offset {err.start})",
+                              "save the file as UTF-8 CSV")]
+
+
+def _read_rows(text: str) -> list[tuple[int, list[str]]]:
+    """CSV records with the file line on which each starts; blank lines skipped."""
+    reader = csv.reader(io.StringIO(text, newline=""))
+    rows, last = [], 0
+    for record in reader:
+        start, last = last + 1, reader.line_num
+        if record and any(cell.strip() for cell in record):
+            rows.append((start, [cell.strip() for cell in record]))
+    return rows
+
+
+def _parse_dates(texts: list[str], date_format: str | None):
+    """Dates (NaT where bad), per-row problems as (i, message), and a whole-file problem or None."""
+    s = pd.Series(texts, dtype=object)
+    formats = [date_format] if date_format else list(DATE_FORMATS)
+    parsed = {f: pd.to_datetime(s, format=f, errors="coerce") for f in formats}
+    counts = {f: int(p.notna().sum()) for f, p in parsed.items()}
+    best = max(formats, key=lambda f: counts[f])   # max keeps the first of equal counts
+    filled = [t for t in texts if t]
+    if counts[best] == 0 and filled:
+        fmt = f"date_format={date_format!r}" if date_format else "a known format"
+        return None, [], Problem(f"no value of the date column is a date in {fmt} (first: {filled[0]!r})",
+                                 f"check the date column; {FIX_DATE}", column=DATE_COLUMN)
+    if not date_format and best == "%d/%m/%Y" and counts["%m/%d/%Y"] == counts[best]:
+        return None, [], Problem("dates could be day/month or month/day (no day above 12)",
+                                 "write dates as YYYY-MM-DD or pass date_format=", column=DATE_COLUMN)
+    label = DATE_FORMATS.get(best, best)
+    row_problems = []
+    for i in np.flatnonzero(parsed[best].isna().to_numpy()):
+        t = texts[i]
+        other = [f for f in formats if f != best and not pd.isna(parsed[f].iloc[i])]
+        if not t:
+            row_problems.append((i, "missing date"))
+        elif other and not date_format:
+            row_problems.append((i, f"date {t!r} is {DATE_FORMATS[other[0]]}, the rest of the file {label} "
+                                    "(mixed date formats)"))
+        else:
+            row_problems.append((i, f"unparseable date {t!r} (expected {label})"))
+    return pd.DatetimeIndex(parsed[best]).as_unit(DATE_UNIT), row_problems, None
+
+
+def _to_number(cell: str) -> tuple[float, str | None]:
+    """A cell's value and, if it is not a finite number, what is wrong (NaN/inf left to the row checks)."""
+    low = cell.lower()
+    if not cell or low in MISSING_WORDS:
+        return math.nan, "missing value" + (f" ({cell!r})" if cell else "")
+    if low in NAN_WORDS:
+        return math.nan, None
+    if low in INF_WORDS:
+        return (-math.inf if low.startswith("-") else math.inf), None
+    if NUMBER_RE.fullmatch(cell):
+        return float(cell), None
+    return math.nan, f"non-numeric value {cell!r}"
+
+
+def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min_rows=0, date_format=None,
+                 ignore_columns=()) -> tuple[pd.DataFrame, tuple[Problem, ...]]:
+    if bad_rows not in BAD_ROWS:
+        raise ValueError(f"bad_rows must be one of {BAD_ROWS}, got {bad_rows=!r}")
+    if isinstance(min_rows, bool) or not isinstance(min_rows, (int, np.integer)) or min_rows < 0:
+        raise ValueError(f"min_rows must be an integer >= 0, got {min_rows=!r}")
+    text, problems = _decode(raw)
+    if text is None:
+        raise PriceFileError(source, problems)
+    rows = _read_rows(text)
+    if not rows:
+        raise PriceFileError(source, [Problem("the file is empty", "write a header line and daily rows into it")])
+    header_line, header = rows[0]
+    body = rows[1:]
+    if len(header) == 1:
+        for sep, name in ((";", "semicolons"), ("\t", "tabs"), ("|", "bars")):
+            if sep in header[0]:
+                raise PriceFileError(source, [Problem(
+                    f"the header is one field separated by {name}, not commas: {header[0][:60]!r}",
+                    "save the file with commas as separators", header_line)])
+    keys = [h.lower() for h in header]
+    structural: list[Problem] = []
+    seen = {}
+    for k in keys:
+        if k in seen:
+            structural.append(Problem(f"the header names {k!r} twice", "give each column its own name",
+                                      header_line, column=k))
+        seen[k] = True
+    mapping = {str(ours).lower(): str(theirs).strip().lower() for ours, theirs in (columns or {}).items()}
+    ignored = {str(c).strip().lower() for c in ignore_columns}
+    position = {}
+    for name in (DATE_COLUMN, *REQUIRED_COLUMNS):
+        wanted = mapping.get(name, name)
+        if wanted in keys:
+            position[name] = keys.index(wanted)
+        else:
+            structural.append(_missing_column(name, header, _mapped_header(columns, name)))
+    taken = {mapping.get(n, n) for n in (DATE_COLUMN, *REQUIRED_COLUMNS)}
+    reverse = {theirs: ours for ours, theirs in mapping.items()}
+    for j, k in enumerate(keys):
+        if k in taken or k in ignored or (k == "" and DATE_COLUMN not in position):
+            continue     # an unnamed column while the date is missing: reported as the missing date
+        ours = reverse.get(k, k)
+        if ours in position:
+            structural.append(Problem(f"column {header[j]!r} clashes with {ours!r} taken from "
+                                      f"{header[position[ours]]!r}",
+                                      f"map it to another name, e.g. columns={{'{ours}_file': {header[j]!r}}}",
+                                      header_line, column=header[j]))
+        else:
+            position[ours] = j
+    n_fields = len(header)
+    lines = np.array([ln for ln, _ in body], dtype=int)
+    cells = [r + [""] * (n_fields - len(r)) for _, r in body]
+    row_problems: list[Problem] = []
+    date_texts = [r[position[DATE_COLUMN]] if DATE_COLUMN in position else "" for r in cells]
+    misfit = np.array([len(r) != n_fields for _, r in body], dtype=bool)   # not parsed further
+    for i in np.flatnonzero(misfit):
+        row_problems.append(Problem(f"the row has {len(body[i][1])} fields, the header {n_fields}",
+                                    "give every row one value per header", int(lines[i]), date_texts[i] or None))
+    dates = None
+    if DATE_COLUMN in position and body:
+        dates, date_rows, whole = _parse_dates(date_texts, date_format)
+        if whole is not None:
+            structural.append(whole)
+        if dates is not None:
+            dates = dates.where(~misfit, pd.NaT)
+        for i, message in date_rows:
+            if misfit[i]:
+                continue
+            row_problems.append(Problem(message, FIX_DATE, int(lines[i]), date_texts[i] or None, DATE_COLUMN))
+    values, bad = {}, {}
+    for name, j in position.items():
+        if name == DATE_COLUMN:
+            continue
+        parsed = [(math.nan, None) if misfit[i] else _to_number(r[j]) for i, r in enumerate(cells)]
+        errors = [(i, e) for i, (_, e) in enumerate(parsed) if e]
+        if name not in REQUIRED_COLUMNS and errors and all(not e.startswith("missing") for _, e in errors) \
+                and len(errors) == len(cells):
+            structural.append(Problem(f"column {header[j]!r} is not numeric (line {lines[0]}: "
+                                      f"{cells[0][j]!r})",
+                                      f"remove the column from the file or pass ignore_columns=[{header[j]!r}]",
+                                      column=header[j]))
+            continue
+        values[name] = np.array([v for v, _ in parsed], dtype=float)
+        bad[name] = misfit.copy()
+        for i, e in errors:
+            bad[name][i] = True
+            row_problems.append(Problem(e, "fill in a number or drop the row", int(lines[i]),
+                                        date_texts[i] or None, name))
+    if structural or not body:
+        raise PriceFileError(source, _sorted(structural + ([] if body else _size_problems(0, min_rows))))
+    texts = [t if t else "" for t in date_texts]
+    row_problems += _row_problems(dates, values, bad, lines, texts)
+    order = [c for c in REQUIRED_COLUMNS] + [c for c in values if c not in REQUIRED_COLUMNS]
+    frame = pd.DataFrame({c: values[c] for c in order}, index=pd.DatetimeIndex(dates, name=DATE_COLUMN))
+    dropped: tuple[Problem, ...] = ()
+    if bad_rows == "drop" and row_problems:
+        drop = {p.line for p in row_problems}
+        frame = frame[~np.isin(lines, list(drop))]
+        dropped, row_problems = tuple(_sorted(row_problems)), []
+    size = _size_problems(len(frame), min_rows)
+    if bad_rows == "drop" and size and len(frame) == 0 and dropped:
+        size = [Problem("every row was dropped as bad", "correct the rows listed in the file")]
+    problems = _sorted(size + row_problems)
+    if problems:
+        raise PriceFileError(source, problems)
+    return frame, dropped
+
+
+def _mapped_header(columns, name):
+    """The file header ``columns`` maps ``name`` to (keys matched case-insensitively), or None."""
+    for ours, theirs in (columns or {}).items():
+        if str(ours).lower() == name:
+            return str(theirs)
+    return None
