@@ -9,6 +9,10 @@ validation target overlaps the test window::
     |---- train ----|embargo|---- valid ----|embargo|---- test ----|
     max(train) + embargo < min(valid);  max(valid) + embargo < min(test)
 
+The embargo counts dataset rows. ``build_dataset`` drops rows only at the two ends unless the
+proxy or an exogenous column has gaps; a gap makes ``embargo`` rows span more trading days, never fewer, so the
+guarantee holds.
+
 Example:
     >>> w = split_by_fraction(len(ds.dates), valid=0.2, test=0.2, embargo=22)
     >>> scaler = fit_scaler(ds.X.iloc[w.train])
@@ -66,6 +70,28 @@ class Windows:
                     f"got last {a} row {int(first[-1])} and first {b} row {int(second[0])}"
                 )
 
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Windows):
+            return NotImplemented
+        return self.embargo == other.embargo and all(
+            np.array_equal(getattr(self, k), getattr(other, k)) for k in ("train", "valid", "test")
+        )
+
+    def summary(self) -> dict:
+        """Plain ints for a record: first and last row and size of each window, and the embargo.
+
+        Returns:
+            ``{"train": {"first": 0, "last": 577, "n_rows": 578}, "valid": {...}, "test": {...},
+            "embargo": 22}``; an empty window has ``first`` and ``last`` None.
+        """
+        out: dict = {}
+        for name in ("train", "valid", "test"):
+            arr = getattr(self, name)
+            out[name] = {"first": int(arr[0]) if arr.size else None,
+                         "last": int(arr[-1]) if arr.size else None, "n_rows": int(arr.size)}
+        out["embargo"] = self.embargo
+        return out
+
 
 def _check_embargo(embargo) -> None:
     if isinstance(embargo, bool) or not isinstance(embargo, (int, np.integer)) or embargo < 0:
@@ -108,8 +134,8 @@ def _windows(n_rows: int, valid_start: int, test_start: int, embargo: int, hint:
 def split_by_fraction(n_rows: int, *, valid: float = 0.2, test: float = 0.2, embargo: int = 22) -> Windows:
     """Train / validation / test by fractions of the rows, in time order.
 
-    The test window is the last ``round(test * n_rows)`` rows, the validation window the
-    ``round(valid * n_rows)`` rows before it; the embargo is then cut from the end of train and
+    The test window is the last ``round(test * n_rows)`` rows (rounded to the nearest
+    integer), the validation window the ``round(valid * n_rows)`` rows before it; the embargo is then cut from the end of train and
     of validation.
 
     Args:
@@ -256,6 +282,23 @@ class Scaler:
     mean: np.ndarray
     scale: np.ndarray
 
+    def __post_init__(self) -> None:
+        mean = np.array(self.mean, dtype=np.float64)
+        scale = np.array(self.scale, dtype=np.float64)
+        if mean.ndim != 1 or scale.shape != mean.shape:
+            raise ValueError(f"Scaler mean and scale must be 1-d of one length, got shapes {mean.shape} and {scale.shape}")
+        if not (np.isfinite(mean).all() and np.isfinite(scale).all() and (scale > 0).all()):
+            raise ValueError("Scaler needs finite means and finite scales > 0; build it with fit_scaler(X_train)")
+        mean.setflags(write=False)
+        scale.setflags(write=False)
+        object.__setattr__(self, "mean", mean)
+        object.__setattr__(self, "scale", scale)
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, Scaler):
+            return NotImplemented
+        return np.array_equal(self.mean, other.mean) and np.array_equal(self.scale, other.scale)
+
     def _check(self, X):
         arr = np.asarray(X, dtype=np.float64)
         if arr.ndim != 2 or arr.shape[1] != self.mean.shape[0]:
@@ -307,7 +350,4 @@ def fit_scaler(X_train) -> Scaler:
     n = arr.shape[0]
     eps = np.finfo(np.float64).eps
     constant = var <= n * eps * var + (n * mean * eps) ** 2
-    scale = np.where(constant, 1.0, np.sqrt(var))
-    mean.setflags(write=False)
-    scale.setflags(write=False)
-    return Scaler(mean=mean, scale=scale)
+    return Scaler(mean=mean, scale=np.where(constant, 1.0, np.sqrt(var)))

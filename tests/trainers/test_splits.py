@@ -124,6 +124,16 @@ def test_windows_rejects_overlap_inside_the_embargo():
         Windows(train=np.arange(10), valid=np.arange(12, 20), test=np.arange(30, 40), embargo=5)
 
 
+def test_windows_equality_and_summary():
+    a = split_by_fraction(1000, embargo=22)
+    assert a == split_by_fraction(1000, embargo=22) and a != split_by_fraction(1000, embargo=21)
+    # Same windows as test_split_by_fraction_by_hand, as plain ints for the record.
+    assert a.summary() == {"train": {"first": 0, "last": 577, "n_rows": 578},
+                           "valid": {"first": 600, "last": 777, "n_rows": 178},
+                           "test": {"first": 800, "last": 999, "n_rows": 200}, "embargo": 22}
+    assert all(type(v) is int for w in ("train", "valid", "test") for v in a.summary()[w].values())
+
+
 def test_fit_scaler_matches_sklearn_standard_scaler():
     # Reference: sklearn.preprocessing.StandardScaler fitted on the same training rows
     # (population standard deviation; constant columns get scale 1).
@@ -154,6 +164,8 @@ def test_scaler_keeps_frames_and_checks_shapes():
         s.transform(np.zeros((3, 3)))
     with pytest.raises(ValueError, match="NaN or infinite"):
         fit_scaler(np.array([[1.0], [np.nan]]))
+    with pytest.raises(ValueError, match="scales > 0"):
+        Scaler(mean=np.zeros(2), scale=np.array([1.0, 0.0]))
 
 
 @pytest.fixture(scope="module")
