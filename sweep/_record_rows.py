@@ -11,6 +11,7 @@ SQLite keeps a float NaN as NULL, so required float fields read NULL back as NaN
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import io
 import json
 import zlib
@@ -81,13 +82,18 @@ def from_row(cls: type, row: dict, **extra: Any) -> Any:
 
 def dataset_row(dataset: DatasetRecord) -> dict:
     row = to_row(dataset)
-    row["csv_zlib"] = zlib.compress(dataset.csv_text.encode("utf-8"), 6)
+    data = dataset.csv_text.encode("utf-8")
+    row["csv_zlib"] = zlib.compress(data, 6)
+    row["csv_sha256"] = hashlib.sha256(data).hexdigest()
     return row
 
 
 def row_dataset(row: dict) -> DatasetRecord:
-    text = zlib.decompress(row["csv_zlib"]).decode("utf-8")
-    return from_row(DatasetRecord, row, csv_text=text)
+    """The dataset with its CSV text; ValueError if the text no longer matches its stored hash."""
+    data = zlib.decompress(row["csv_zlib"])
+    if hashlib.sha256(data).hexdigest() != row["csv_sha256"]:
+        raise ValueError(f"the stored rows of dataset {row['sha256'][:12]} do not match their SHA-256")
+    return from_row(DatasetRecord, row, csv_text=data.decode("utf-8"))
 
 
 def study_row(study: StudyRecord) -> dict:

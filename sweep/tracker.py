@@ -15,30 +15,25 @@ Example:
 
 from __future__ import annotations
 
-import contextlib
-import dataclasses
 import sqlite3
+import zlib
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterable
 
 import numpy as np
 import sqlite_utils
 
 from sweep import _record_rows as rows
-from sweep.errors import VolsweepError
-from sweep.records import (
-    BASELINE_WINDOWS,
-    TRIAL_STATES,
-    BaselineRecord,
-    ConfirmRecord,
-    DatasetRecord,
-    HoldoutRecord,
-    NoteRecord,
-    StudyRecord,
-    TrialRecord,
-    check_weights,
-    utc_now,
+from sweep._tracker_base import (
+    BUSY_TIMEOUT,
+    SCHEMA_VERSION,
+    RecordError,
+    RecordNotFound,
+    StudyNotFound,
+    TrialNotFound,
 )
+from sweep._tracker_reviews import ReviewsMixin
+from sweep.records import TRIAL_STATES, DatasetRecord, StudyRecord, TrialRecord, check_weights, utc_now
 
 __all__ = [
     "SCHEMA_VERSION",
@@ -49,75 +44,8 @@ __all__ = [
     "TrialNotFound",
 ]
 
-SCHEMA_VERSION = 1
-BUSY_TIMEOUT = 30.0
-_TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
-_TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
-_STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
-_SCHEMA = f"""
-CREATE TABLE IF NOT EXISTS vs_meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
-CREATE TABLE IF NOT EXISTS vs_datasets (
-    sha256 TEXT PRIMARY KEY, source TEXT NOT NULL, n_rows INTEGER NOT NULL, first_date TEXT,
-    last_date TEXT, columns TEXT NOT NULL, csv_zlib BLOB NOT NULL, dropped TEXT NOT NULL);
-CREATE TABLE IF NOT EXISTS vs_studies (
-    name TEXT PRIMARY KEY, spec_text TEXT NOT NULL, spec_hash TEXT NOT NULL, search_hash TEXT NOT NULL,
-    created TEXT NOT NULL, code_version TEXT, git_commit TEXT, packages TEXT NOT NULL, python TEXT,
-    platform TEXT, machine TEXT, dataset_sha256 TEXT NOT NULL REFERENCES vs_datasets (sha256),
-    objective TEXT NOT NULL, direction TEXT NOT NULL, task TEXT NOT NULL, storage TEXT, sampler TEXT,
-    pruner TEXT, settings TEXT NOT NULL);
-CREATE TABLE IF NOT EXISTS vs_trials (
-    {_STUDY_FK}, number INTEGER NOT NULL, state TEXT NOT NULL, params TEXT NOT NULL, seed TEXT NOT NULL,
-    best_epoch INTEGER, n_epochs INTEGER, stop_reason TEXT, objective REAL, train_loss REAL,
-    valid_loss REAL, gap REAL, gap_ratio REAL, started TEXT, finished TEXT, seconds REAL, error TEXT,
-    worker TEXT, PRIMARY KEY (study, number));
-CREATE INDEX IF NOT EXISTS vs_trials_state ON vs_trials (study, state);
-CREATE TABLE IF NOT EXISTS vs_epochs (
-    {_TRIAL_KEY}, epoch INTEGER NOT NULL, train_loss REAL, valid_loss REAL, valid_score REAL,
-    seconds REAL, PRIMARY KEY (study, number, epoch), {_TRIAL_FK});
-CREATE TABLE IF NOT EXISTS vs_forecasts (
-    {_TRIAL_KEY}, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
-    PRIMARY KEY (study, number), {_TRIAL_FK});
-CREATE TABLE IF NOT EXISTS vs_weights (
-    {_TRIAL_KEY}, npz BLOB NOT NULL, PRIMARY KEY (study, number), {_TRIAL_FK});
-CREATE TABLE IF NOT EXISTS vs_baselines (
-    {_STUDY_FK}, name TEXT NOT NULL, "window" TEXT NOT NULL, objective REAL, losses TEXT NOT NULL,
-    params TEXT NOT NULL, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
-    PRIMARY KEY (study, name, "window"));
-CREATE TABLE IF NOT EXISTS vs_holdouts (
-    study TEXT NOT NULL, sequence INTEGER NOT NULL, trial INTEGER NOT NULL, created TEXT NOT NULL,
-    command TEXT NOT NULL, again INTEGER NOT NULL, results TEXT NOT NULL, PRIMARY KEY (study, sequence),
-    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number) ON DELETE CASCADE);
-CREATE TABLE IF NOT EXISTS vs_confirmations (
-    id INTEGER PRIMARY KEY AUTOINCREMENT, study TEXT NOT NULL, trial INTEGER NOT NULL,
-    created TEXT NOT NULL, seeds TEXT NOT NULL, objectives TEXT NOT NULL, gaps TEXT NOT NULL,
-    summary TEXT NOT NULL, extra TEXT NOT NULL,
-    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number) ON DELETE CASCADE);
-CREATE TABLE IF NOT EXISTS vs_notes (
-    id INTEGER PRIMARY KEY AUTOINCREMENT, {_STUDY_FK}, trial INTEGER, created TEXT NOT NULL,
-    text TEXT NOT NULL, author TEXT,
-    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number));
-"""
-TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
-          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes")
 
-
-class RecordError(VolsweepError):
-    """The file cannot be used as a record: not SQLite, damaged, from a newer volsweep, or busy."""
-
-
-class RecordNotFound(VolsweepError):
-    """A record file, dataset or other record that was asked for is not there."""
-
-
-class StudyNotFound(RecordNotFound):
-    """No study of that name in the file (or no name given and the file holds several)."""
-
-
-class TrialNotFound(RecordNotFound):
-    """The study has no trial of that number."""
-
-
-class Tracker:
+class Tracker(ReviewsMixin):
     """Reads and writes the record in one SQLite database.
 
     Args:
@@ -128,25 +56,6 @@ class Tracker:
     Raises:
         RecordError: the database is not a volsweep record or was written by a newer version.
     """
-
-    def __init__(self, db: sqlite_utils.Database, *, create: bool = True):
-        self.db = db
-        self.location = _location(db)
-        try:
-            db.execute("PRAGMA foreign_keys=ON")
-            tables = set(db.table_names())
-        except sqlite3.DatabaseError as exc:
-            raise RecordError(f"{self.location} is not a volsweep record: {exc}") from exc
-        if "vs_meta" in tables:
-            self._check_schema(tables)
-        elif create:
-            self._create_schema()
-        else:
-            listed = ", ".join(sorted(tables)) or "none"
-            raise RecordError(
-                f"{self.location} is not a volsweep record: it has no vs_meta table (tables there: "
-                f"{listed}); give the .sqlite file that `volsweep run` wrote"
-            )
 
     @classmethod
     def open(cls, path: str | Path, *, create: bool = True) -> Tracker:
@@ -175,79 +84,6 @@ class Tracker:
     def memory(cls) -> Tracker:
         """A new, empty record in memory (for tests and dry runs)."""
         return cls(sqlite_utils.Database(memory=True))
-
-    def close(self) -> None:
-        """Fold the WAL back into the file (so the .sqlite alone can be copied) and close."""
-        with contextlib.suppress(sqlite3.Error):
-            self.db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
-        self.db.close()
-
-    def __enter__(self) -> Tracker:
-        return self
-
-    def __exit__(self, *exc_info) -> None:
-        self.close()
-
-    # ------------------------------------------------------------------ schema and transactions
-
-    def _create_schema(self) -> None:
-        with self._transaction():
-            self.db.executescript(_SCHEMA)
-            self.db.execute(
-                "INSERT OR IGNORE INTO vs_meta (key, value) VALUES ('schema_version', ?), ('created', ?)",
-                [str(SCHEMA_VERSION), utc_now()],
-            )
-
-    def _check_schema(self, tables: set[str]) -> None:
-        found = self._one("SELECT value FROM vs_meta WHERE key = 'schema_version'")
-        try:
-            version = int(found["value"])
-        except (TypeError, ValueError):
-            raise RecordError(
-                f"{self.location} is not a volsweep record: vs_meta has no readable schema_version "
-                f"({found!r}); the file may be damaged, use a backup copy"
-            ) from None
-        if version > SCHEMA_VERSION:
-            raise RecordError(
-                f"{self.location} was written by a newer volsweep (record schema {version}; this version "
-                f"reads up to {SCHEMA_VERSION}); upgrade volsweep to open it"
-            )
-        missing = [t for t in TABLES if t not in tables]
-        if missing:
-            raise RecordError(
-                f"{self.location} is not a volsweep record: tables missing: {', '.join(missing)}; "
-                "the file may be damaged, use a backup copy"
-            )
-
-    @contextlib.contextmanager
-    def _transaction(self) -> Iterator[None]:
-        """One write transaction that takes the write lock first (``BEGIN IMMEDIATE``)."""
-        conn = self.db.conn
-        if conn.in_transaction:
-            with self.db.atomic():
-                yield
-            return
-        try:
-            conn.execute("BEGIN IMMEDIATE")
-        except sqlite3.OperationalError as exc:
-            raise RecordError(
-                f"{self.location} is busy: {exc} (another process held the write lock for "
-                f"{BUSY_TIMEOUT:.0f} s); retry when the other writer finishes"
-            ) from exc
-        try:
-            yield
-        except BaseException:
-            if conn.in_transaction:
-                conn.execute("ROLLBACK")
-            raise
-        else:
-            conn.execute("COMMIT")
-
-    def _one(self, sql: str, params: Iterable = ()) -> dict | None:
-        return next(self.db.query(sql, list(params)), None)
-
-    def _all(self, sql: str, params: Iterable = ()) -> list[dict]:
-        return list(self.db.query(sql, list(params)))
 
     # ------------------------------------------------------------------ studies and datasets
 
@@ -278,18 +114,6 @@ class Tracker:
             if self._one("SELECT 1 AS x FROM vs_datasets WHERE sha256 = ?", [dataset.sha256]) is None:
                 self.db["vs_datasets"].insert(rows.dataset_row(dataset))
             self.db["vs_studies"].insert(rows.study_row(study))
-
-    def _study_names(self) -> list[str]:
-        return [r["name"] for r in self._all("SELECT name FROM vs_studies ORDER BY created, name")]
-
-    def _require_study(self, name: str) -> None:
-        if self._one("SELECT 1 AS x FROM vs_studies WHERE name = ?", [name]) is None:
-            names = self._study_names()
-            listed = ", ".join(names) if names else "none yet"
-            raise StudyNotFound(
-                f"no study named {name!r} in {self.location}; studies there: {listed} "
-                f"(see `volsweep list {self.location}`)"
-            )
 
     def find_study(self, name: str | None = None) -> StudyRecord:
         """The study called ``name``, or with ``name=None`` the file's only study.
@@ -348,6 +172,7 @@ class Tracker:
 
         Raises:
             RecordNotFound: no dataset with that hash in the file.
+            RecordError: the stored rows are damaged (their SHA-256 no longer matches).
         """
         found = self._one("SELECT * FROM vs_datasets WHERE sha256 = ?", [sha256])
         if found is None:
@@ -355,7 +180,10 @@ class Tracker:
                 f"no dataset {sha256[:12]}... in {self.location}; `volsweep list {self.location}` "
                 "shows the datasets of its studies"
             )
-        return rows.row_dataset(found)
+        try:
+            return rows.row_dataset(found)
+        except (ValueError, zlib.error) as exc:
+            raise RecordError(f"{self.location} is damaged: {exc}; use a backup copy of the file") from exc
 
     # ------------------------------------------------------------------ trials
 
@@ -412,19 +240,6 @@ class Tracker:
             rows.row_trial(r, epochs=epochs.get(r["number"], ()), valid_forecasts=forecasts.get(r["number"]))
             for r in found
         ]
-
-    def _trial_row(self, study: str, number: int) -> dict:
-        self._require_study(study)
-        found = self._one("SELECT * FROM vs_trials WHERE study = ? AND number = ?", [study, int(number)])
-        if found is None:
-            span = self._one("SELECT COUNT(*) AS n, MIN(number) AS lo, MAX(number) AS hi FROM vs_trials "
-                             "WHERE study = ?", [study])
-            held = f"{span['n']} trials, numbers {span['lo']}-{span['hi']}" if span["n"] else "no trials yet"
-            raise TrialNotFound(
-                f"study {study!r} in {self.location} has no trial {number} ({held}); "
-                f"see `volsweep list {self.location}`"
-            )
-        return found
 
     def load_trial(self, study: str, number: int) -> TrialRecord:
         """One trial in full: epochs, validation forecasts and weights.
@@ -484,85 +299,3 @@ class Tracker:
                 )
         return running
 
-    # ------------------------------------------------------------------ baselines and reviews
-
-    def record_baselines(self, records: list[BaselineRecord]) -> None:
-        """Insert or replace baselines (key: study, name, window) in one transaction."""
-        with self._transaction():
-            for study in sorted({r.study for r in records}):
-                self._require_study(study)
-            self.db["vs_baselines"].upsert_all(
-                [rows.baseline_row(r) for r in records], pk=("study", "name", "window")
-            )
-
-    def load_baselines(self, study: str, window: str | None = None) -> list[BaselineRecord]:
-        """A study's baselines, by window then name; ``window`` "valid" or "test" keeps one window."""
-        self._require_study(study)
-        if window is not None and window not in BASELINE_WINDOWS:
-            raise ValueError(f"window must be one of {', '.join(BASELINE_WINDOWS)} or None; got {window!r}")
-        sql, params = 'SELECT * FROM vs_baselines WHERE study = ?', [study]
-        if window is not None:
-            sql, params = sql + ' AND "window" = ?', params + [window]
-        return [rows.row_baseline(r) for r in self._all(sql + ' ORDER BY "window" DESC, name', params)]
-
-    def record_holdout(self, record: HoldoutRecord) -> HoldoutRecord:
-        """Add a holdout result (never overwritten); returns it with its ``sequence`` filled in.
-
-        Raises:
-            RecordError: a holdout with that sequence number is already recorded.
-        """
-        with self._transaction():
-            self._trial_row(record.study, record.trial)
-            last = self._one("SELECT MAX(sequence) AS n FROM vs_holdouts WHERE study = ?", [record.study])["n"] or 0
-            sequence = last + 1 if record.sequence is None else record.sequence
-            if sequence <= last and self._one("SELECT 1 AS x FROM vs_holdouts WHERE study = ? AND sequence = ?",
-                                              [record.study, sequence]):
-                raise RecordError(
-                    f"holdout #{sequence} of study {record.study!r} is already recorded and is never "
-                    "overwritten; leave sequence=None to add the next one"
-                )
-            stored = dataclasses.replace(record, sequence=sequence)
-            self.db["vs_holdouts"].insert(rows.to_row(stored))
-        return stored
-
-    def load_holdouts(self, study: str, trial: int | None = None) -> list[HoldoutRecord]:
-        """The study's holdout results in sequence order (optionally one trial's)."""
-        return [rows.from_row(HoldoutRecord, r, again=bool(r["again"]))
-                for r in self._review_rows("vs_holdouts", study, trial, "sequence")]
-
-    def record_confirmation(self, record: ConfirmRecord) -> None:
-        """Add a confirmation (a trial retrained on fresh seeds); earlier ones are kept."""
-        with self._transaction():
-            self._trial_row(record.study, record.trial)
-            self.db["vs_confirmations"].insert(rows.to_row(record))
-
-    def load_confirmations(self, study: str, trial: int | None = None) -> list[ConfirmRecord]:
-        """The study's confirmations, oldest first (optionally one trial's)."""
-        return [rows.from_row(ConfirmRecord, r) for r in self._review_rows("vs_confirmations", study, trial, "id")]
-
-    def add_note(self, note: NoteRecord) -> None:
-        """Add a decision note; notes are never overwritten or removed."""
-        with self._transaction():
-            if note.trial is None:
-                self._require_study(note.study)
-            else:
-                self._trial_row(note.study, note.trial)
-            self.db["vs_notes"].insert(rows.to_row(note))
-
-    def load_notes(self, study: str, trial: int | None = None) -> list[NoteRecord]:
-        """The study's notes, oldest first (optionally only those on one trial)."""
-        return [rows.from_row(NoteRecord, r) for r in self._review_rows("vs_notes", study, trial, "id")]
-
-    def _review_rows(self, table: str, study: str, trial: int | None, order: str) -> list[dict]:
-        self._require_study(study)
-        if trial is None:
-            return self._all(f"SELECT * FROM {table} WHERE study = ? ORDER BY {order}", [study])
-        return self._all(f"SELECT * FROM {table} WHERE study = ? AND trial = ? ORDER BY {order}", [study, int(trial)])
-
-
-def _location(db: sqlite_utils.Database) -> str:
-    """The file behind ``db`` as given to SQLite, or ":memory:"."""
-    for r in db.conn.execute("PRAGMA database_list"):
-        if r[1] == "main":
-            return r[2] or ":memory:"
-    return ":memory:"

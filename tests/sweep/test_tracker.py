@@ -10,6 +10,7 @@ import dataclasses
 import multiprocessing
 import shutil
 import sqlite3
+import zlib
 
 import numpy as np
 import pytest
@@ -423,3 +424,10 @@ def test_two_processes_write_one_file(tmp_path):
         assert [tr.number for tr in trials] == list(range(100))
         assert all(len(tr.epochs) == 4 for tr in trials)
         assert_same_trial(t.load_trial("coastal", 77), make_trial(77, n_epochs=4))
+
+
+def test_load_dataset_detects_damaged_rows(tracker):
+    # the rows carry their own SHA-256 (hashlib), so a changed copy is caught on reading
+    tracker.db.execute("UPDATE vs_datasets SET csv_zlib = ?", [zlib.compress(b"date\n")])
+    with pytest.raises(RecordError, match="is damaged: the stored rows of dataset 3f3f3f3f3f3f do not match"):
+        tracker.load_dataset(SHA)
