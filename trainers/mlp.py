@@ -1,0 +1,426 @@
+"""The network: configuration, initialisation, forward and backward passes on one flat parameter buffer.
+
+Parameter layout. Layer ``l`` maps ``fan_in`` units to ``fan_out`` units with a block of
+``(fan_in + 1) * fan_out`` numbers read row-major as a ``(fan_in + 1, fan_out)`` matrix: the first
+``fan_in`` rows are the weights, the last row is the bias. Blocks are concatenated from the input
+layer to the output layer into one vector of ``n_params(config)`` numbers. A stack of ``K`` networks of
+one shape is a ``(K, n_params)`` array, and every per-layer view gets a leading model axis.
+
+Activations of hidden layers carry a trailing column of ones, so ``[a, 1] @ [[W], [b]]`` computes
+``a @ W + b`` with one matrix product, and the gradient of the whole block is one product too.
+
+Dropout is inverted dropout on hidden units only: a unit is kept with probability ``1 - p`` and scaled
+by ``1 / (1 - p)`` in training; evaluation uses no dropout.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields
+from typing import Sequence
+
+import numpy as np
+
+from trainers import losses
+
+__all__ = [
+    "ACTIVATIONS",
+    "TASKS",
+    "INITS",
+    "DTYPES",
+    "MLPConfig",
+    "Network",
+    "init_params",
+    "layer_shapes",
+    "n_params",
+    "unpack_params",
+    "decay_mask",
+    "forward",
+    "Workspace",
+    "loss_and_grad",
+]
+
+ACTIVATIONS = ("relu", "tanh", "sigmoid")
+TASKS = ("regression", "classification")
+INITS = ("auto", "he", "glorot")
+DTYPES = ("float64", "float32")
+
+
+def _is_int(value) -> bool:
+    return isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))
+
+
+def _fail(name: str, rule: str, value, fix: str) -> None:
+    raise ValueError(f"{name} must be {rule}, got {name}={value!r}; {fix}")
+
+
+@dataclass(frozen=True)
+class MLPConfig:
+    """Shape and kind of a network. Validated when built.
+
+    Attributes:
+        n_inputs: number of input features (columns of X).
+        n_outputs: regression: number of targets; classification: number of classes (>= 2).
+        hidden: units per hidden layer, input side first; ``()`` is a linear model.
+        activation: hidden activation, one of ``ACTIVATIONS``.
+        task: ``"regression"`` (identity output, mean squared error) or ``"classification"``
+            (softmax output, cross-entropy).
+        init: ``"he"`` (normal, std sqrt(2 / fan_in)), ``"glorot"`` (uniform, bound
+            sqrt(6 / (fan_in + fan_out))) or ``"auto"`` (he for relu, glorot otherwise). Biases start at 0.
+        dropout: probability of dropping a hidden unit in training, 0 <= p < 1.
+        dtype: ``"float64"`` or ``"float32"``.
+    """
+
+    n_inputs: int
+    n_outputs: int
+    hidden: tuple[int, ...] = (32,)
+    activation: str = "relu"
+    task: str = "regression"
+    init: str = "auto"
+    dropout: float = 0.0
+    dtype: str = "float64"
+
+    def __post_init__(self) -> None:
+        if not _is_int(self.n_inputs) or self.n_inputs < 1:
+            _fail("n_inputs", "an integer >= 1", self.n_inputs, "pass the number of feature columns, X.shape[1]")
+        object.__setattr__(self, "n_inputs", int(self.n_inputs))
+        if self.task not in TASKS:
+            _fail("task", f"one of {TASKS}", self.task, "set task in the study file to regression or classification")
+        low = 2 if self.task == "classification" else 1
+        if not _is_int(self.n_outputs) or self.n_outputs < low:
+            _fail("n_outputs", f"an integer >= {low} for task={self.task!r}", self.n_outputs,
+                  "pass the number of targets (regression) or of classes (classification)")
+        object.__setattr__(self, "n_outputs", int(self.n_outputs))
+        hidden = self.hidden
+        if _is_int(hidden):
+            hidden = (hidden,)
+        if isinstance(hidden, (str, bytes)) or not hasattr(hidden, "__iter__"):
+            _fail("hidden", "a sequence of layer widths", self.hidden,
+                  "set space.hidden in the study file, e.g. [64, 64], or [] for a linear model")
+        hidden = tuple(hidden)
+        if not all(_is_int(h) and h >= 1 for h in hidden):
+            _fail("hidden", "a sequence of integers >= 1", self.hidden,
+                  "set space.hidden in the study file, e.g. [64, 64], or [] for a linear model")
+        object.__setattr__(self, "hidden", tuple(int(h) for h in hidden))
+        if self.activation not in ACTIVATIONS:
+            _fail("activation", f"one of {ACTIVATIONS}", self.activation,
+                  "set space.activation in the study file to relu, tanh or sigmoid")
+        if self.init not in INITS:
+            _fail("init", f"one of {INITS}", self.init, "set init to he, glorot or auto")
+        if (isinstance(self.dropout, (bool, np.bool_)) or not isinstance(self.dropout, (int, float, np.floating, np.integer))
+                or not 0.0 <= float(self.dropout) < 1.0):
+            _fail("dropout", "a number with 0 <= dropout < 1", self.dropout,
+                  "set space.dropout in the study file to a rate such as 0.1 (0 turns dropout off)")
+        object.__setattr__(self, "dropout", float(self.dropout))
+        if self.dtype not in DTYPES:
+            _fail("dtype", f"one of {DTYPES}", self.dtype, "use float64 (default) or float32")
+
+    @property
+    def init_scheme(self) -> str:
+        """The initialisation actually used: ``"he"`` or ``"glorot"``."""
+        if self.init != "auto":
+            return self.init
+        return "he" if self.activation == "relu" else "glorot"
+
+    @property
+    def widths(self) -> tuple[int, ...]:
+        """Units per layer from input to output: ``(n_inputs, *hidden, n_outputs)``."""
+        return (self.n_inputs, *self.hidden, self.n_outputs)
+
+
+def layer_shapes(config: MLPConfig) -> list[tuple[int, int]]:
+    """Shapes ``(fan_in + 1, fan_out)`` of each layer's block (weights plus a bias row)."""
+    w = config.widths
+    return [(w[i] + 1, w[i + 1]) for i in range(len(w) - 1)]
+
+
+def n_params(config: MLPConfig) -> int:
+    """Length of the flat parameter vector."""
+    return sum(a * b for a, b in layer_shapes(config))
+
+
+def unpack_params(params: np.ndarray, config: MLPConfig) -> list[np.ndarray]:
+    """Views of each layer's block, shape ``(..., fan_in + 1, fan_out)``; writes go to ``params``.
+
+    Args:
+        params: shape (P,) or (K, P).
+        config: the network's shape.
+
+    Returns:
+        One view per layer, input layer first.
+    """
+    views, start = [], 0
+    lead = params.shape[:-1]
+    for a, b in layer_shapes(config):
+        views.append(params[..., start:start + a * b].reshape(*lead, a, b))
+        start += a * b
+    return views
+
+
+def decay_mask(config: MLPConfig) -> np.ndarray:
+    """Vector (P,) with 1 at weights and 0 at biases: L2 weight decay applies to weights only."""
+    mask = np.ones(n_params(config), dtype=config.dtype)
+    for view in unpack_params(mask, config):
+        view[-1] = 0.0
+    return mask
+
+
+def _init_one(config: MLPConfig, rng: np.random.Generator) -> np.ndarray:
+    parts = []
+    scheme = config.init_scheme
+    for a, fan_out in layer_shapes(config):
+        fan_in = a - 1
+        if scheme == "he":  # He et al. (2015): N(0, 2 / fan_in)
+            w = rng.standard_normal((fan_in, fan_out)) * np.sqrt(2.0 / fan_in)
+        else:  # Glorot and Bengio (2010): U(-sqrt(6 / (fan_in + fan_out)), +sqrt(...))
+            bound = np.sqrt(6.0 / (fan_in + fan_out))
+            w = rng.uniform(-bound, bound, (fan_in, fan_out))
+        parts.extend([w.ravel(), np.zeros(fan_out)])
+    return np.concatenate(parts).astype(config.dtype)
+
+
+def init_params(config: MLPConfig, *, rng, n_models: int | None = None) -> np.ndarray:
+    """Initial parameters of one network or a stack of networks.
+
+    Args:
+        config: the network's shape.
+        rng: a ``numpy.random.Generator``; with ``n_models`` it may also be a sequence of ``n_models``
+            generators, one per network (network k then equals ``init_params(config, rng=rng[k])``).
+        n_models: None for one network, else the number K of stacked networks.
+
+    Returns:
+        Array (P,) or (K, P) in ``config.dtype``.
+    """
+    if n_models is None:
+        if not isinstance(rng, np.random.Generator):
+            raise TypeError(f"rng must be a numpy.random.Generator, got {type(rng).__name__}; "
+                            "pass rng=np.random.default_rng(seed)")
+        return _init_one(config, rng)
+    if not _is_int(n_models) or n_models < 1:
+        _fail("n_models", "an integer >= 1", n_models, "pass the number of stacked networks")
+    rngs = [rng] * n_models if isinstance(rng, np.random.Generator) else list(rng)
+    if len(rngs) != n_models:
+        _fail("rng", f"a Generator or a sequence of {n_models} Generators", f"<{len(rngs)} generators>",
+              "pass one generator per stacked network")
+    return np.stack([_init_one(config, r) for r in rngs])
+
+
+def _activate(name: str, z: np.ndarray, out: np.ndarray) -> np.ndarray:
+    if name == "relu":
+        return np.maximum(z, 0, out=out)
+    if name == "tanh":
+        return np.tanh(z, out=out)
+    np.negative(z, out=out)  # sigmoid = 1 / (1 + exp(-z)); exp overflow gives 1/inf = 0, as it should
+    np.exp(out, out=out)
+    out += 1.0
+    return np.reciprocal(out, out=out)
+
+
+def forward(config: MLPConfig, params: np.ndarray, X: np.ndarray) -> np.ndarray:
+    """Evaluation-mode forward pass (no dropout): the raw outputs.
+
+    Args:
+        config: the network's shape.
+        params: shape (P,) or (K, P).
+        X: inputs, shape (n_samples, n_inputs), shared by all stacked networks.
+
+    Returns:
+        Regression outputs or classification logits, shape (n_samples, n_outputs) or (K, n_samples, n_outputs).
+    """
+    h = np.asarray(X, dtype=config.dtype)
+    views = unpack_params(np.asarray(params), config)
+    with np.errstate(over="ignore", invalid="ignore"):
+        for i, w in enumerate(views):
+            z = np.matmul(h, w[..., :-1, :])
+            z += w[..., -1:, :]
+            h = z if i == len(views) - 1 else _activate(config.activation, z, z)
+    return h
+
+
+class Network:
+    """A network: its config and ONE flat parameter vector (biases folded into the weight blocks).
+
+    Args:
+        config: the network's shape.
+        params: shape (n_params(config),); copied into ``config.dtype``.
+    """
+
+    def __init__(self, config: MLPConfig, params: np.ndarray) -> None:
+        params = np.array(params, dtype=config.dtype)
+        if params.shape != (n_params(config),):
+            raise ValueError(f"params must have shape ({n_params(config)},) for this config, got shape "
+                             f"{params.shape}; build it with init_params(config, rng=...)")
+        self.config = config
+        self.params = params
+
+    def __repr__(self) -> str:
+        return f"Network({self.config!r}, n_params={self.params.size})"
+
+    def _check_X(self, X) -> np.ndarray:
+        X = np.asarray(X)
+        if X.ndim != 2 or X.shape[1] != self.config.n_inputs:
+            raise ValueError(f"X must have shape (n_samples, {self.config.n_inputs}), got shape {X.shape}; "
+                             "pass the same feature columns the network was trained on")
+        return X
+
+    def output(self, X) -> np.ndarray:
+        """Raw outputs (n, n_outputs): regression values or classification logits."""
+        return forward(self.config, self.params, self._check_X(X))
+
+    def predict(self, X) -> np.ndarray:
+        """Regression: outputs (n, n_outputs). Classification: class index (n,) = argmax of the probabilities."""
+        out = self.output(X)
+        return out.argmax(axis=1) if self.config.task == "classification" else out
+
+    def predict_proba(self, X) -> np.ndarray:
+        """Classification only: softmax probabilities (n, n_classes), float64."""
+        if self.config.task != "classification":
+            raise ValueError(f"predict_proba needs task='classification', got task={self.config.task!r}; "
+                             "use predict for regression outputs")
+        return losses.softmax(self.output(X))
+
+    def to_arrays(self) -> dict[str, np.ndarray]:
+        """Plain arrays for ``np.savez(..., allow_pickle=False)``: ``params`` plus each config field."""
+        arrays = {"params": self.params.copy()}
+        for f in fields(MLPConfig):
+            value = getattr(self.config, f.name)
+            arrays[f.name] = np.array(value, dtype=np.int64) if f.name == "hidden" else np.array(value)
+        return arrays
+
+    @classmethod
+    def from_arrays(cls, arrays) -> "Network":
+        """Inverse of ``to_arrays`` (accepts the mapping returned by ``np.load``)."""
+        kwargs = {}
+        for f in fields(MLPConfig):
+            value = np.asarray(arrays[f.name])
+            kwargs[f.name] = tuple(int(v) for v in value.reshape(-1)) if f.name == "hidden" else value.item()
+        return cls(MLPConfig(**kwargs), np.asarray(arrays["params"]))
+
+
+class Workspace:
+    """Preallocated buffers for training steps of K stacked networks on batches of at most B rows.
+
+    ``gradients`` writes the gradient of the mean batch loss of every network into ``self.grads``
+    (K, P), with no array allocation. Dropout masks are passed in, already scaled by 1 / (1 - p).
+
+    Args:
+        config: the networks' shape.
+        n_models: K.
+        batch_size: B, the largest batch.
+    """
+
+    def __init__(self, config: MLPConfig, n_models: int, batch_size: int) -> None:
+        dt = np.dtype(config.dtype)
+        K, B = n_models, batch_size
+        self.config = config
+        self.n_models, self.batch_size = K, B
+        self.grads = np.zeros((K, n_params(config)), dtype=dt)
+        self.grad_views = unpack_params(self.grads, config)
+        self._z = [np.empty((K, B, h), dt) for h in config.hidden]
+        self._a = [np.ones((K, B, h + 1), dt) for h in config.hidden]  # last column stays 1
+        self._da = [np.empty((K, B, h), dt) for h in config.hidden]
+        self._tmp = [np.empty((K, B, h), dt) for h in config.hidden]
+        self._out = np.empty((K, B, config.n_outputs), dt)
+        self._row = np.empty((K, B, 1), dt)
+        self._cache: dict[int, tuple] = {}
+
+    def _views(self, b: int) -> tuple:
+        v = self._cache.get(b)
+        if v is None:
+            hs = self.config.hidden
+            v = ([z[:, :b] for z in self._z], [a[:, :b] for a in self._a],
+                 [a[:, :b, :h] for a, h in zip(self._a, hs)], [d[:, :b] for d in self._da],
+                 [t[:, :b] for t in self._tmp], self._out[:, :b], self._row[:, :b])
+            self._cache[b] = v
+        return v
+
+    def gradients(self, weights: list[np.ndarray], X: np.ndarray, Y: np.ndarray, masks=None) -> None:
+        """Forward in training mode, loss gradient, backward; result in ``self.grads``.
+
+        Args:
+            weights: per-layer views (K, fan_in + 1, fan_out) of the parameters (``unpack_params``).
+            X: batch inputs with a trailing column of ones, shape (K, b, n_inputs + 1).
+            Y: regression targets or one-hot labels, shape (K, b, n_outputs).
+            masks: None, or per hidden layer the scaled dropout mask (K, b, h).
+        """
+        b = X.shape[1]
+        zs, aas, avs, das, tmps, out, row = self._views(b)
+        act = self.config.activation
+        n_hidden = len(zs)
+        hs = []
+        inp = X
+        for i in range(n_hidden):
+            np.matmul(inp, weights[i], out=zs[i])
+            if masks is None:
+                hs.append(_activate(act, zs[i], avs[i]))
+            else:
+                hs.append(_activate(act, zs[i], zs[i]))
+                np.multiply(zs[i], masks[i], out=avs[i])
+            inp = aas[i]
+        np.matmul(inp, weights[n_hidden], out=out)
+        if self.config.task == "classification":
+            losses.inplace_softmax(out, row)
+            losses.inplace_softmax_grad(out, Y, out=out)
+        else:
+            losses.inplace_mse_grad(out, Y, out=out)
+        d = out
+        for i in range(n_hidden, -1, -1):
+            inp = X if i == 0 else aas[i - 1]
+            np.matmul(inp.transpose(0, 2, 1), d, out=self.grad_views[i])
+            if i == 0:
+                break
+            da, t, h = das[i - 1], tmps[i - 1], hs[i - 1]
+            np.matmul(d, weights[i][:, :-1, :].transpose(0, 2, 1), out=da)
+            if masks is not None:
+                da *= masks[i - 1]
+            if act == "relu":
+                np.greater(h, 0, out=t)
+            elif act == "tanh":  # d tanh = 1 - tanh^2
+                np.multiply(h, h, out=t)
+                np.subtract(1.0, t, out=t)
+            else:  # d sigmoid = s (1 - s)
+                np.subtract(1.0, h, out=t)
+                t *= h
+            da *= t
+            d = da
+
+
+def loss_and_grad(config: MLPConfig, params: np.ndarray, X: np.ndarray, y: np.ndarray, *,
+                  weight_decay: float = 0.0, masks: Sequence[np.ndarray] | None = None) -> tuple[float, np.ndarray]:
+    """Training objective of one network on one batch and its gradient (for checks and tools).
+
+    Objective = mean data loss (training mode, with the given dropout masks) + weight_decay / 2 * ||W||^2,
+    where W are the weights, not the biases.
+
+    Args:
+        config: the network's shape.
+        params: shape (P,).
+        X: shape (n, n_inputs).
+        y: regression targets (n, n_outputs), or integer labels (n,) for classification.
+        weight_decay: L2 coefficient.
+        masks: None, or per hidden layer a mask (n, h) already scaled by 1 / (1 - p).
+
+    Returns:
+        (objective as a float, gradient (P,) as a new array).
+    """
+    dt = np.dtype(config.dtype)
+    X = np.asarray(X, dtype=dt)
+    n = X.shape[0]
+    Xa = np.concatenate([X, np.ones((n, 1), dt)], axis=1)[None]
+    Y = (losses.one_hot(y, config.n_outputs, dt) if config.task == "classification"
+         else np.asarray(y, dtype=dt).reshape(n, config.n_outputs))[None]
+    p = np.array(params, dtype=dt)[None]
+    ws = Workspace(config, 1, n)
+    ws.gradients(unpack_params(p, config), Xa, Y, None if masks is None else [np.asarray(m, dt)[None] for m in masks])
+    # the objective value, from an independent plain forward pass with the same masks
+    h = X
+    views = unpack_params(p[0], config)
+    for i, w in enumerate(views):
+        h = h @ w[:-1] + w[-1]
+        if i < len(views) - 1:
+            h = _activate(config.activation, h, np.empty_like(h))
+            if masks is not None:
+                h = h * masks[i]
+    data = losses.softmax_cross_entropy(h, y) if config.task == "classification" else losses.mse(h, Y[0])
+    dmask = decay_mask(config)
+    grad = ws.grads[0] + weight_decay * dmask * p[0]
+    return data + 0.5 * weight_decay * float(np.sum(dmask * p[0] ** 2)), grad
