@@ -218,6 +218,10 @@ def build_dataset(frame: pd.DataFrame, *, estimator: str = "garman_klass", horiz
         raise TypeError(f"config must be a FeatureConfig, got {type(config).__name__}")
     if isinstance(frame, pd.DataFrame) and not frame.index.is_monotonic_increasing:
         raise ValueError("price frame rows are not in date order; sort it with frame.sort_index()")
+    if isinstance(frame, pd.DataFrame) and frame.index.has_duplicates:
+        raise ValueError(
+            f"price frame has {int(frame.index.duplicated().sum())} repeated date(s); keep one row per day"
+        )
     variance = daily_variance(frame, estimator, **est_kwargs)
     returns = log_returns(frame)
     X = feature_frame(variance, returns, frame, config)

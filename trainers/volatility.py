@@ -71,7 +71,7 @@ def _prices(frame: pd.DataFrame, columns: tuple[str, ...] = PRICE_COLUMNS) -> di
             raise ValueError(
                 f"price column {c!r} is not numeric (dtype {frame[c].dtype}); convert it to float first"
             ) from exc
-        bad = ~(values > 0) & ~np.isnan(values)
+        bad = ~np.isnan(values) & ~((values > 0) & np.isfinite(values))  # NaN rows give NaN
         if bad.any():
             first = int(np.flatnonzero(bad)[0])
             raise ValueError(

@@ -176,6 +176,10 @@ def test_bad_input_messages():
         build_dataset(toy_frame(), horizons=(1,), config=FeatureConfig(har_windows=(1,), exogenous=("vix",)))
     with pytest.raises(ValueError, match="no complete rows: the frame has 9 rows"):
         build_dataset(toy_frame(), horizons=(5,), config=FeatureConfig(har_windows=(22,)))
+    with pytest.raises(ValueError, match="not in date order"):
+        build_dataset(toy_frame().iloc[::-1], horizons=(1,), config=FeatureConfig(har_windows=(1,)))
+    with pytest.raises(ValueError, match="1 repeated date"):
+        build_dataset(toy_frame().iloc[[0, 1, 1, 2, 3, 4]], horizons=(1,), config=FeatureConfig(har_windows=(1,)))
     with pytest.raises(ValueError, match="n_classes must be an integer >= 2"):
         regime_thresholds([1.0, 2.0, 3.0], 1)
     with pytest.raises(ValueError, match="distinct cut points"):

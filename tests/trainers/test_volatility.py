@@ -218,5 +218,12 @@ def test_bad_input_messages():
     bad.iloc[2, bad.columns.get_loc("low")] = 0.0
     with pytest.raises(ValueError, match="'low' has 1 value.*2020-01-08"):
         garman_klass(bad)
+    bad.iloc[2, bad.columns.get_loc("low")] = np.inf
+    with pytest.raises(ValueError, match="'low' has 1 value.*infinite"):
+        garman_klass(bad)
+    # A missing price is not an error: that day's value is NaN (build_dataset drops the row).
+    gap = frame.copy()
+    gap.iloc[2, gap.columns.get_loc("high")] = np.nan
+    assert parkinson(gap).isna().tolist() == [False, False, True, False, False]
     with pytest.raises(TypeError, match="DataFrame"):
         parkinson(frame.to_numpy())
