@@ -19,6 +19,8 @@ class ReviewsMixin(TrackerBase):
 
     def record_baselines(self, records: list[BaselineRecord]) -> None:
         """Insert or replace baselines (key: study, name, window) in one transaction."""
+        if not records:
+            return
         with self._transaction():
             for study in sorted({r.study for r in records}):
                 self._require_study(study)

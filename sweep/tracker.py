@@ -78,7 +78,9 @@ class Tracker(ReviewsMixin):
             conn.execute("PRAGMA synchronous=NORMAL")
         except sqlite3.DatabaseError as exc:
             raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
-        return cls(sqlite_utils.Database(conn), create=create)
+        tracker = cls(sqlite_utils.Database(conn), create=create)
+        tracker.location = str(path)  # messages name the file as the user gave it
+        return tracker
 
     @classmethod
     def memory(cls) -> Tracker:
@@ -222,6 +224,8 @@ class Tracker(ReviewsMixin):
         where, params = "study = ?", [study]
         if states is not None:
             states = [states] if isinstance(states, str) else list(states)
+            if not states:
+                return []
             bad = [s for s in states if s not in TRIAL_STATES]
             if bad:
                 raise ValueError(f"states must be taken from {', '.join(TRIAL_STATES)}; got {bad!r}")

@@ -431,3 +431,35 @@ def test_load_dataset_detects_damaged_rows(tracker):
     tracker.db.execute("UPDATE vs_datasets SET csv_zlib = ?", [zlib.compress(b"date\n")])
     with pytest.raises(RecordError, match="is damaged: the stored rows of dataset 3f3f3f3f3f3f do not match"):
         tracker.load_dataset(SHA)
+
+
+def test_empty_selections_are_empty(tracker):
+    tracker.record_trial(make_trial(0, arrays=False))
+    assert tracker.load_trials("coastal", states=[]) == []
+    tracker.record_baselines([])
+    assert tracker.load_baselines("coastal") == []
+    assert tracker.mark_interrupted("coastal", []) == []
+    with pytest.raises(StudyNotFound, match="no study named 'inland'"):
+        tracker.load_baselines("inland")
+
+
+def test_a_writer_blocked_past_the_timeout_gets_a_busy_error(tmp_path):
+    import sqlite_utils
+
+    path = tmp_path / "busy.sqlite"
+    with Tracker.open(path) as t:
+        t.save_study(make_study(), make_dataset())
+    holder = sqlite3.connect(path, isolation_level=None)
+    holder.execute("BEGIN IMMEDIATE")  # another process holding the write lock (sqlite.org/lang_transaction.html)
+    try:
+        impatient = Tracker(sqlite_utils.Database(sqlite3.connect(path, timeout=0.1)), create=False)
+        with pytest.raises(RecordError, match="busy.sqlite is busy: database is locked"):
+            impatient.record_trial(make_trial(0, arrays=False))
+        # WAL readers are not blocked by the writer
+        assert impatient.find_study().name == "coastal"
+    finally:
+        holder.execute("ROLLBACK")
+        holder.close()
+    impatient.record_trial(make_trial(0, arrays=False))
+    assert [tr.number for tr in impatient.load_trials("coastal")] == [0]
+    impatient.close()
