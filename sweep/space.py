@@ -69,12 +69,12 @@ class SettingRule:
     def describe(self) -> str:
         if self.kind == "text":
             return "one of " + ", ".join(format_value(c) for c in self.choices)
-        noun = "a whole number" if self.kind == "int" else "a number"
+        noun, cast = ("a whole number", int) if self.kind == "int" else ("a number", float)
         bounds = []
         if self.low is not None:
-            bounds.append(f"{'>' if self.low_open else '>='} {format_value(self.low)}")
+            bounds.append(f"{'>' if self.low_open else '>='} {format_value(cast(self.low))}")
         if self.high is not None:
-            bounds.append(f"{'<' if self.high_open else '<='} {format_value(self.high)}")
+            bounds.append(f"{'<' if self.high_open else '<='} {format_value(cast(self.high))}")
         return noun + (" " + " and ".join(bounds) if bounds else "")
 
 

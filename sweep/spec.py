@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from sweep.errors import VolsweepError
+from trainers.baselines import BASELINES
 from trainers.volatility import ESTIMATORS
 from sweep.space import (
     ACTIVATIONS,
@@ -36,14 +37,14 @@ from sweep.space import (
 )
 
 __all__ = [
-    "ACTIVATIONS", "BASELINES", "ESTIMATORS", "OBJECTIVES", "PRUNERS", "SAMPLERS", "SECTIONS",
+    "ACTIVATIONS", "BASELINES", "ESTIMATORS", "HAR_MIN_ROWS", "OBJECTIVES", "PRUNERS", "SAMPLERS", "SECTIONS",
     "BaselineSection", "Choice", "DataSection", "FeatureSection", "Fixed", "FloatRange", "IntRange",
     "SearchSection", "SpecError", "SplitSection", "StudySection", "StudySpec", "TargetSection",
     "TrainingSection", "diff_specs", "load_spec", "parse_spec",
 ]
 
-# Must match trainers.baselines.BASELINES (checked in the tests once that module exists).
-BASELINES = ("random_walk", "ewma", "har", "har_rolling", "garch")
+# The fewest rows of a rolling HAR fit: forecast_baselines' default har_min_rows (checked in the tests).
+HAR_MIN_ROWS = 250
 OBJECTIVES = {"regression": ("qlike", "mse_log", "mse"), "classification": ("deviance",)}
 SAMPLERS = ("tpe", "random", "qmc", "grid")
 PRUNERS = ("median", "halving", "hyperband", "none")
@@ -354,16 +355,10 @@ def _check_across(v: dict[str, dict], space: Mapping[str, Setting], problems: li
                 if key not in ours:
                     problems.append(f"unknown key data.columns.{key}{did_you_mean(key, ours, 'data.columns.')} "
                                     f"(columns maps {', '.join(ours)} to the file's headers)")
-    include, har = v["baselines"]["include"], features["har_windows"]
-    if _ok(include, har) and not har:
-        for name in ("har", "har_rolling"):
-            if name in include:
-                problems.append(f"baselines.include: {format_value(name)} needs features.har_windows; "
-                                f"add har_windows = [1, 5, 22] or remove {format_value(name)}")
     window = v["baselines"]["har_window"]
-    if _ok(window, har) and window < len(har) + 2:
-        problems.append(f"baselines.har_window: must be >= {len(har) + 2} rows to fit {len(har) + 1} HAR "
-                        f"coefficients, got {window}")
+    if _ok(window) and window < HAR_MIN_ROWS:
+        problems.append(f"baselines.har_window: the rolling HAR needs at least {HAR_MIN_ROWS} rows per fit, "
+                        f"got {window}; set har_window = {HAR_MIN_ROWS} or more")
     search, max_epochs = v["search"], v["training"]["max_epochs"]
     if _ok(search["sampler"]) and search["sampler"] == "grid":
         problems.extend(grid_problems(space))
