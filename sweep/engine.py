@@ -1,0 +1,462 @@
+"""The optuna study of a volsweep study: storage, sampler and pruner from the spec, worker processes, resume.
+
+A run goes: spec -> price file (validated, fingerprinted) -> record (study, dataset copy, baselines, once)
+-> optuna study -> workers. Each worker is a process with one BLAS thread; it rebuilds the study's arrays
+from the copy of the rows kept in the record, so every worker trains on exactly what was recorded.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import queue
+import signal
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import optuna
+from optuna.trial import TrialState
+
+from sweep.errors import VolsweepError
+from sweep.inputs import StudyInputs, compute_baselines, prepare_inputs
+from sweep.objective import TrialOutcome, run_trial, trial_seed
+from sweep.provenance import collect_provenance
+from sweep.records import BaselineRecord, DatasetRecord, StudyRecord, TrialRecord
+from sweep.space import grid_values
+from sweep.spec import StudySpec, diff_specs, parse_spec
+from sweep.tracker import StudyNotFound, Tracker
+from trainers.data import PriceFileError, frame_to_csv_text, load_prices, read_prices_csv_text
+
+__all__ = [
+    "StudyChanged",
+    "RunSummary",
+    "default_record_path",
+    "default_storage_path",
+    "open_storage",
+    "make_sampler",
+    "make_pruner",
+    "run_study",
+    "inputs_from_record",
+    "spec_from_record",
+]
+
+FINISHED_STATES = (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
+POLL_SECONDS = 0.2
+
+
+class StudyChanged(VolsweepError):
+    """The study file changed (data or search) since the study was created."""
+
+
+class DataError(VolsweepError):
+    """The price file of a study has problems."""
+
+
+@dataclass
+class RunSummary:
+    """What a run did, for the CLI to print."""
+
+    study: str
+    record_path: Path
+    storage: str
+    n_target: int
+    counts: dict = field(default_factory=dict)
+    best: float | None = None
+    interrupted: bool = False
+    resumed: bool = False
+    recovered: list = field(default_factory=list)
+    seconds: float = 0.0
+
+
+def default_record_path(spec_path: Path) -> Path:
+    """`studies/x.toml` -> `studies/x.sqlite`."""
+    return spec_path.with_suffix(".sqlite")
+
+
+def default_storage_path(record_path: Path) -> Path:
+    """The optuna journal beside the record: `studies/x.sqlite` -> `studies/x.optuna.log`."""
+    return record_path.with_suffix(".optuna.log")
+
+
+def open_storage(url: str):
+    """An optuna storage from a URL (`sqlite:///...`, `postgresql://...`) or a journal file path.
+
+    SQLite gets a 30 s busy timeout so several workers never see `database is locked`.
+    """
+    if "://" in url:
+        kwargs = {}
+        if url.startswith("sqlite"):
+            kwargs["engine_kwargs"] = {"connect_args": {"timeout": 30}}
+        return optuna.storages.RDBStorage(url, **kwargs)
+    from optuna.storages import JournalStorage
+    from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
+
+    return JournalStorage(JournalFileBackend(url, lock_obj=JournalFileOpenLock(url)))
+
+
+def make_sampler(spec: StudySpec, worker: int = 0):
+    """The spec's sampler; each worker gets its own seed derived from the study seed."""
+    search = spec.search
+    seed = int(spec.study.seed) * 1000 + worker
+    if search.sampler == "tpe":
+        return optuna.samplers.TPESampler(seed=seed, n_startup_trials=search.startup_trials)
+    if search.sampler == "random":
+        return optuna.samplers.RandomSampler(seed=seed)
+    if search.sampler == "qmc":
+        return optuna.samplers.QMCSampler(seed=int(spec.study.seed), scramble=True)
+    if search.sampler == "grid":
+        return optuna.samplers.GridSampler(grid_values(spec.space), seed=seed)
+    raise ValueError(f"unknown sampler {search.sampler!r}")
+
+
+def make_pruner(spec: StudySpec):
+    """The spec's pruner, deciding on the validation score reported after each epoch."""
+    search = spec.search
+    if search.pruner == "median":
+        return optuna.pruners.MedianPruner(
+            n_startup_trials=search.startup_trials, n_warmup_steps=search.warmup_epochs
+        )
+    if search.pruner == "halving":
+        return optuna.pruners.SuccessiveHalvingPruner(
+            min_resource=search.min_epochs, reduction_factor=search.reduction_factor
+        )
+    if search.pruner == "hyperband":
+        return optuna.pruners.HyperbandPruner(
+            min_resource=search.min_epochs,
+            max_resource=spec.training.max_epochs,
+            reduction_factor=search.reduction_factor,
+        )
+    if search.pruner == "none":
+        return optuna.pruners.NopPruner()
+    raise ValueError(f"unknown pruner {search.pruner!r}")
+
+
+def spec_from_record(study: StudyRecord) -> StudySpec:
+    """The spec a recorded study ran with, under the recorded name."""
+    spec = parse_spec(study.spec_text, base_dir=Path("."))
+    return spec.with_name(study.name) if spec.study.name != study.name else spec
+
+
+def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, StudyInputs]:
+    """Rebuild a study's spec and arrays from the record alone (no price file needed)."""
+    spec = spec_from_record(study)
+    dataset = tracker.load_dataset(study.dataset_sha256)
+    frame = read_prices_csv_text(dataset.csv_text)
+    return spec, prepare_inputs(spec, frame)
+
+
+def _min_rows(spec: StudySpec) -> int:
+    # warm-up of the longest HAR window, the longest horizon and room for three windows
+    return max(spec.features.har_windows) + max(spec.target.horizons) + 3 * spec.split.embargo + 30
+
+
+def _load_price_data(spec: StudySpec):
+    try:
+        return load_prices(
+            spec.data.file,
+            columns=dict(spec.data.columns),
+            bad_rows=spec.data.bad_rows,
+            min_rows=_min_rows(spec),
+        )
+    except PriceFileError as exc:
+        raise DataError(f"{exc}\nfix the file, or set data.bad_rows = \"drop\" to drop bad rows") from exc
+    except FileNotFoundError as exc:
+        raise DataError(
+            f"price file {spec.data.file} not found; set data.file in the study file "
+            "(relative paths start at the study file's folder)"
+        ) from exc
+
+
+def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: str) -> StudyInputs:
+    inputs = prepare_inputs(spec, price_data.frame)
+    frame = price_data.frame
+    dataset = DatasetRecord(
+        sha256=price_data.sha256,
+        source=str(price_data.source),
+        n_rows=len(frame),
+        first_date=frame.index[0].date().isoformat(),
+        last_date=frame.index[-1].date().isoformat(),
+        columns=list(frame.columns),
+        csv_text=frame_to_csv_text(frame),
+        dropped=[str(p) for p in price_data.dropped],
+    )
+    prov = collect_provenance()
+    study = StudyRecord(
+        name=spec.study.name,
+        spec_text=spec.text,
+        spec_hash=spec.spec_hash(),
+        search_hash=spec.search_hash(),
+        dataset_sha256=price_data.sha256,
+        objective=spec.study.objective,
+        direction="minimize",
+        task=spec.target.task,
+        storage=storage_url,
+        sampler=spec.search.sampler,
+        pruner=spec.search.pruner,
+        settings={"windows": {w: len(getattr(inputs.windows, w)) for w in ("train", "valid", "test")}},
+        **prov,
+    )
+    baselines = [
+        BaselineRecord(
+            study=spec.study.name,
+            name=b.name,
+            window=b.window,
+            objective=b.objective,
+            losses=b.losses,
+            params=b.params,
+            forecasts=b.forecasts,
+        )
+        for b in compute_baselines(spec, inputs)
+    ]
+    tracker.save_study(study, dataset)
+    tracker.record_baselines(baselines)
+    return inputs
+
+
+def _check_unchanged(old: StudyRecord, spec: StudySpec, sha256: str) -> None:
+    problems = []
+    if old.dataset_sha256 != sha256:
+        problems.append(f"data: the price file's SHA-256 changed ({old.dataset_sha256[:12]} -> {sha256[:12]})")
+    if old.search_hash != spec.search_hash():
+        old_spec = parse_spec(old.spec_text, base_dir=Path(".")).to_dict()
+        problems.extend(diff_specs(old_spec, spec.to_dict()) or ["search settings changed"])
+    if problems:
+        lines = "\n  ".join(problems)
+        raise StudyChanged(
+            f"study {spec.study.name!r} was recorded with different settings:\n  {lines}\n"
+            "restore the study file, or start a new study with --name NEW_NAME"
+        )
+
+
+def _recover_orphans(study: optuna.Study, tracker: Tracker, spec: StudySpec, reason: str) -> list[int]:
+    """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again."""
+    numbers = []
+    for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        study.tell(t.number, state=TrialState.FAIL)
+        numbers.append(t.number)
+        tracker.record_trial(
+            TrialRecord(
+                study=spec.study.name,
+                number=t.number,
+                state="failed",
+                params=dict(t.params),
+                seed=trial_seed(spec.study.seed, t.number),
+                best_epoch=0,
+                n_epochs=len(t.intermediate_values),
+                stop_reason="error",
+                started=t.datetime_start.isoformat() if t.datetime_start else None,
+                error=f"{reason}; its settings were queued again and run next",
+            )
+        )
+        if t.params:
+            study.enqueue_trial(dict(t.params), user_attrs={"retry_of": t.number}, skip_if_exists=False)
+    return numbers
+
+
+def _n_finished(study: optuna.Study) -> int:
+    return sum(
+        1
+        for t in study.get_trials(deepcopy=False, states=FINISHED_STATES)
+        if not t.user_attrs.get("interrupted")
+    )
+
+
+def _counts(study: optuna.Study) -> dict:
+    counts = {"complete": 0, "pruned": 0, "failed": 0}
+    for t in study.get_trials(deepcopy=False, states=FINISHED_STATES):
+        key = {TrialState.COMPLETE: "complete", TrialState.PRUNED: "pruned"}.get(t.state, "failed")
+        counts[key] += 1
+    return counts
+
+
+@dataclass(frozen=True)
+class _WorkerPlan:
+    record_path: str
+    storage_url: str
+    study_name: str
+    spec_text: str
+    worker: int
+
+
+def _limit_threads():
+    from threadpoolctl import threadpool_limits
+
+    return threadpool_limits(limits=1)
+
+
+def _worker_loop(plan: _WorkerPlan, claim: Callable[[], bool], stop, report) -> None:
+    tracker = Tracker.open(plan.record_path, create=False)
+    study_record = tracker.find_study(plan.study_name)
+    spec, inputs = inputs_from_record(tracker, study_record)
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    study = optuna.load_study(
+        study_name=plan.study_name,
+        storage=open_storage(plan.storage_url),
+        sampler=make_sampler(spec, plan.worker),
+        pruner=make_pruner(spec),
+    )
+    while not stop.is_set() and claim():
+        outcome = run_trial(study, spec, inputs, tracker, stop=stop)
+        report(outcome)
+        if outcome.state == "interrupted":
+            raise KeyboardInterrupt
+
+
+def _worker_main(plan: _WorkerPlan, slots, stop, events) -> None:
+    """Entry point of one worker process."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides when to stop
+    _limits = _limit_threads()  # noqa: F841  (kept alive for the life of the process)
+
+    def claim() -> bool:
+        with slots.get_lock():
+            if slots.value <= 0:
+                return False
+            slots.value -= 1
+            return True
+
+    try:
+        _worker_loop(plan, claim, stop, events.put)
+    except KeyboardInterrupt:
+        return
+    except Exception as exc:  # a crash outside a trial: tell the main process, then end
+        events.put(("crash", plan.worker, f"{type(exc).__name__}: {exc}"))
+        raise
+
+
+def run_study(
+    spec: StudySpec,
+    *,
+    record_path: Path,
+    storage: str | None = None,
+    n_trials: int | None = None,
+    n_workers: int | None = None,
+    on_event: Callable[[object, dict], None] | None = None,
+) -> RunSummary:
+    """Create or resume a study and run its trials.
+
+    Args:
+        spec: the parsed study file.
+        record_path: the SQLite record (created if missing).
+        storage: optuna storage URL or journal path; default a journal beside the record.
+        n_trials: total trials the study should reach (default the spec's).
+        n_workers: worker processes (default the spec's); 1 runs in this process.
+        on_event: called with each TrialOutcome (or a crash tuple) and the current counts.
+
+    Returns:
+        A RunSummary.
+
+    Raises:
+        DataError, StudyChanged: nothing is run or written in those cases.
+    """
+    t0 = time.perf_counter()
+    record_path = Path(record_path)
+    storage_url = storage or str(default_storage_path(record_path))
+    n_target = int(n_trials if n_trials is not None else spec.study.trials)
+    n_workers = int(n_workers if n_workers is not None else spec.study.workers)
+    price_data = _load_price_data(spec)
+
+    tracker = Tracker.open(record_path)
+    try:
+        old = tracker.find_study(spec.study.name)
+    except StudyNotFound:
+        old = None
+    if old is not None:
+        _check_unchanged(old, spec, price_data.sha256)
+        storage_url = storage or old.storage or storage_url
+    else:
+        _create_study(tracker, spec, price_data, storage_url)
+
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    study = optuna.create_study(
+        study_name=spec.study.name,
+        storage=open_storage(storage_url),
+        direction="minimize",
+        load_if_exists=True,
+    )
+    summary = RunSummary(spec.study.name, record_path, storage_url, n_target, resumed=old is not None)
+    summary.recovered = _recover_orphans(
+        study, tracker, spec, "the worker running this trial stopped before it finished"
+    )
+    remaining = max(0, n_target - _n_finished(study))
+    if remaining:
+        plan = _WorkerPlan(str(record_path), storage_url, spec.study.name, spec.text, 0)
+        try:
+            if n_workers <= 1:
+                _run_inline(plan, remaining, study, on_event)
+            else:
+                _run_processes(plan, remaining, n_workers, study, on_event)
+        except KeyboardInterrupt:
+            summary.interrupted = True
+        summary.recovered += _recover_orphans(
+            study, tracker, spec, "the worker running this trial stopped before it finished"
+        )
+    summary.counts = _counts(study)
+    completed = study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
+    summary.best = min((t.value for t in completed), default=None)
+    summary.seconds = time.perf_counter() - t0
+    return summary
+
+
+class _Flag:
+    def __init__(self):
+        self.value = False
+
+    def is_set(self) -> bool:
+        return self.value
+
+    def set(self) -> None:
+        self.value = True
+
+
+def _run_inline(plan: _WorkerPlan, remaining: int, study: optuna.Study, on_event) -> None:
+    left = [remaining]
+    stop = _Flag()
+
+    def claim() -> bool:
+        if left[0] <= 0:
+            return False
+        left[0] -= 1
+        return True
+
+    def report(outcome):
+        if on_event:
+            on_event(outcome, _counts(study))
+
+    with _limit_threads():
+        _worker_loop(plan, claim, stop, report)
+
+
+def _run_processes(plan, remaining, n_workers, study, on_event) -> None:
+    ctx = mp.get_context("spawn")
+    slots = ctx.Value("i", remaining)
+    stop = ctx.Event()
+    events = ctx.Queue()
+    procs = []
+    for w in range(min(n_workers, remaining)):
+        p = ctx.Process(
+            target=_worker_main,
+            args=(_WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, plan.spec_text, w),
+                  slots, stop, events),
+            name=f"volsweep-worker-{w}",
+        )
+        p.start()
+        procs.append(p)
+    try:
+        while any(p.is_alive() for p in procs) or not events.empty():
+            try:
+                event = events.get(timeout=POLL_SECONDS)
+            except queue.Empty:
+                continue
+            if on_event:
+                on_event(event, _counts(study))
+    except KeyboardInterrupt:
+        stop.set()
+        for p in procs:
+            p.join(timeout=60)
+        raise
+    finally:
+        for p in procs:
+            p.join(timeout=5)
+            if p.is_alive():
+                p.terminate()

@@ -1,0 +1,296 @@
+"""From a study spec and a price frame to the arrays, windows, scorer and baselines of a study.
+
+Everything here is derived, never stored: the record keeps the spec text and a copy of the price rows,
+and `prepare_inputs` rebuilds the same arrays from them on any machine.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from trainers import metrics
+from trainers.baselines import forecast_baselines
+from trainers.features import (
+    Dataset,
+    FeatureConfig,
+    build_dataset,
+    regime_labels,
+    regime_thresholds,
+)
+from trainers.splits import Scaler, Windows, fit_scaler, split_by_dates, split_by_fraction
+
+__all__ = [
+    "WINDOW_NAMES",
+    "StudyInputs",
+    "prepare_inputs",
+    "score_forecasts",
+    "compute_baselines",
+]
+
+WINDOW_NAMES = ("train", "valid", "test")
+# Losses a regression objective can be; each takes level variances (truth, forecast) of shape (n, h).
+REGRESSION_OBJECTIVES = ("qlike", "mse_log", "mse")
+CLASSIFICATION_OBJECTIVES = ("deviance",)
+# Floor applied to level forecasts before a log or a ratio (the same floor the features use).
+FORECAST_FLOOR = 1e-10
+
+
+@dataclass(frozen=True)
+class StudyInputs:
+    """The arrays one study trains and evaluates on.
+
+    Attributes:
+        dataset: features and targets before scaling, one row per forecast origin.
+        windows: row positions of the train, validation and test windows.
+        x_scaler: scaling of the inputs, fitted on the training window only.
+        y_scaler: scaling of regression targets, fitted on the training window (None for classes).
+        X: dict window -> scaled inputs, shape (n_rows, n_features).
+        y: dict window -> training targets: scaled regression targets (n_rows, n_outputs) or
+            class labels (n_rows,).
+        truth: dict window -> level variance targets (n_rows, n_horizons), used by every score.
+        task: "regression" or "classification".
+        objective: the name of the validation score.
+        log: whether regression targets are log variances.
+        thresholds: regime cut points (classification only).
+    """
+
+    dataset: Dataset
+    windows: Windows
+    x_scaler: Scaler
+    y_scaler: Scaler | None
+    X: dict
+    y: dict
+    truth: dict
+    labels: dict
+    task: str
+    objective: str
+    log: bool
+    horizons: tuple[int, ...]
+    thresholds: np.ndarray | None
+
+    @property
+    def n_inputs(self) -> int:
+        return self.X["train"].shape[1]
+
+    @property
+    def n_outputs(self) -> int:
+        if self.task == "classification":
+            return len(self.thresholds) + 1
+        return self.y["train"].shape[1]
+
+    def dates(self, window: str) -> pd.DatetimeIndex:
+        return self.dataset.dates[getattr(self.windows, window)]
+
+    def to_level(self, output: np.ndarray) -> np.ndarray:
+        """Turn the network's raw regression output into level variance forecasts."""
+        target = self.y_scaler.inverse_transform(np.asarray(output, dtype=np.float64))
+        if self.log:
+            return np.exp(target)
+        return np.maximum(target, FORECAST_FLOOR)
+
+    def scorer(self, window: str = "valid") -> Callable[[np.ndarray], float]:
+        """The study's objective as a function of the network's raw output on `window`."""
+        if self.task == "classification":
+            labels = self.labels[window]
+            return lambda proba: metrics.deviance(labels, proba)
+        truth = self.truth[window]
+        return lambda output: score_forecasts(self.objective, truth, self.to_level(output))
+
+    def forecasts(self, output: np.ndarray) -> np.ndarray:
+        """What the record keeps of a trial's output: level variances or class probabilities."""
+        if self.task == "classification":
+            return np.asarray(output, dtype=np.float64)
+        return self.to_level(output)
+
+
+def score_forecasts(objective: str, truth: np.ndarray, forecast: np.ndarray) -> float:
+    """Score level variance forecasts against level truth, averaged over rows and horizons.
+
+    Args:
+        objective: "qlike" (Patton, 2011), "mse_log" (MSE of log variances) or "mse" (levels).
+        truth: realised mean variance, shape (n_rows, n_horizons).
+        forecast: forecast of the same, same shape.
+
+    Returns:
+        The mean loss; lower is better.
+    """
+    forecast = np.maximum(np.asarray(forecast, dtype=np.float64), FORECAST_FLOOR)
+    truth = np.maximum(np.asarray(truth, dtype=np.float64), FORECAST_FLOOR)
+    if objective == "qlike":
+        return float(metrics.qlike(truth, forecast))
+    if objective == "mse_log":
+        return float(np.mean((np.log(truth) - np.log(forecast)) ** 2))
+    if objective == "mse":
+        return float(metrics.mse(truth, forecast))
+    raise ValueError(
+        f"unknown objective {objective!r}; use one of {REGRESSION_OBJECTIVES + CLASSIFICATION_OBJECTIVES}"
+    )
+
+
+def _split(spec, dataset: Dataset) -> Windows:
+    split = spec.split
+    if split.valid_start is not None:
+        return split_by_dates(
+            dataset.dates,
+            valid_start=split.valid_start,
+            test_start=split.test_start,
+            embargo=split.embargo,
+        )
+    return split_by_fraction(
+        len(dataset.dates), valid=split.valid, test=split.test, embargo=split.embargo
+    )
+
+
+def feature_config(spec) -> FeatureConfig:
+    f = spec.features
+    return FeatureConfig(
+        har_windows=tuple(f.har_windows),
+        log=spec.target.scale == "log",
+        extra_lags=tuple(f.extra_lags),
+        returns=f.returns,
+        abs_returns=f.abs_returns,
+        exogenous=tuple(f.exogenous),
+    )
+
+
+def build_study_dataset(spec, frame: pd.DataFrame) -> Dataset:
+    """Daily variance, features and targets of a study, before any split."""
+    kwargs = {}
+    if spec.target.estimator == "yang_zhang":
+        kwargs["window"] = spec.target.yang_zhang_window
+    return build_dataset(
+        frame,
+        estimator=spec.target.estimator,
+        horizons=tuple(spec.target.horizons),
+        config=feature_config(spec),
+        **kwargs,
+    )
+
+
+def prepare_inputs(spec, frame: pd.DataFrame) -> StudyInputs:
+    """Build every array a study needs from its spec and its validated price frame.
+
+    Args:
+        spec: a `sweep.spec.StudySpec`.
+        frame: the price frame (DatetimeIndex, open/high/low/close and extra columns).
+
+    Returns:
+        StudyInputs with scaled inputs and targets per window.
+    """
+    dataset = build_study_dataset(spec, frame)
+    windows = _split(spec, dataset)
+    X_all = dataset.X.to_numpy(dtype=np.float64)
+    log = spec.target.scale == "log"
+    y_target = dataset.y.to_numpy(dtype=np.float64)
+    truth_all = np.exp(y_target) if log else y_target
+    x_scaler = fit_scaler(X_all[windows.train])
+    X = {w: x_scaler.transform(X_all[getattr(windows, w)]) for w in WINDOW_NAMES}
+    truth = {w: truth_all[getattr(windows, w)] for w in WINDOW_NAMES}
+    labels: dict = {}
+    thresholds = None
+    y_scaler = None
+    if spec.target.task == "classification":
+        # The regime of the first horizon's mean variance, cut at training-window quantiles.
+        first = truth_all[:, 0]
+        thresholds = regime_thresholds(first[windows.train], spec.target.classes)
+        labels = {w: regime_labels(first[getattr(windows, w)], thresholds) for w in WINDOW_NAMES}
+        y = dict(labels)
+    else:
+        y_scaler = fit_scaler(y_target[windows.train])
+        y = {w: y_scaler.transform(y_target[getattr(windows, w)]) for w in WINDOW_NAMES}
+    return StudyInputs(
+        dataset=dataset,
+        windows=windows,
+        x_scaler=x_scaler,
+        y_scaler=y_scaler,
+        X=X,
+        y=y,
+        truth=truth,
+        labels=labels,
+        task=spec.target.task,
+        objective=spec.study.objective,
+        log=log,
+        horizons=tuple(spec.target.horizons),
+        thresholds=thresholds,
+    )
+
+
+@dataclass(frozen=True)
+class BaselineScore:
+    """One baseline's forecasts and losses on one window."""
+
+    name: str
+    window: str
+    objective: float
+    losses: dict
+    params: dict
+    forecasts: np.ndarray
+
+
+def window_losses(truth: np.ndarray, forecast: np.ndarray) -> dict:
+    """Every regression loss of level forecasts on one window, for tables and the board."""
+    losses = {name: score_forecasts(name, truth, forecast) for name in REGRESSION_OBJECTIVES}
+    losses["mae"] = float(metrics.mae(truth, np.maximum(forecast, FORECAST_FLOOR)))
+    losses["mz_r2"] = float(
+        np.mean([metrics.mz_r2(truth[:, j], forecast[:, j]) for j in range(truth.shape[1])])
+    )
+    return losses
+
+
+def compute_baselines(spec, inputs: StudyInputs) -> list[BaselineScore]:
+    """The classic benchmarks on the validation and test windows of a regression study."""
+    if inputs.task == "classification":
+        return _class_share_baseline(inputs)
+    fitted = forecast_baselines(
+        inputs.dataset,
+        inputs.windows,
+        horizons=inputs.horizons,
+        names=tuple(spec.baselines.include),
+        ewma_lambda=spec.baselines.ewma_lambda,
+        har_window=spec.baselines.har_window,
+        log=inputs.log,
+    )
+    scores = []
+    for name, result in fitted.items():
+        all_forecasts = result.forecasts.to_numpy(dtype=np.float64)
+        for window in ("valid", "test"):
+            forecast = all_forecasts[getattr(inputs.windows, window)]
+            truth = inputs.truth[window]
+            scores.append(
+                BaselineScore(
+                    name=name,
+                    window=window,
+                    objective=score_forecasts(inputs.objective, truth, forecast),
+                    losses=window_losses(truth, forecast),
+                    params=result.params,
+                    forecasts=forecast,
+                )
+            )
+    return scores
+
+
+def _class_share_baseline(inputs: StudyInputs) -> list[BaselineScore]:
+    """Predict the training window's class shares every day: the no-skill benchmark for regimes."""
+    n_classes = inputs.n_outputs
+    counts = np.bincount(inputs.labels["train"], minlength=n_classes).astype(np.float64)
+    shares = (counts + 1.0) / (counts.sum() + n_classes)  # add-one so no class has probability 0
+    scores = []
+    for window in ("valid", "test"):
+        labels = inputs.labels[window]
+        proba = np.tile(shares, (len(labels), 1))
+        deviance = float(metrics.deviance(labels, proba))
+        scores.append(
+            BaselineScore(
+                name="class_shares",
+                window=window,
+                objective=deviance,
+                losses={"deviance": deviance, "accuracy": float(metrics.accuracy(labels, proba))},
+                params={"shares": shares.tolist()},
+                forecasts=proba,
+            )
+        )
+    return scores

@@ -1,0 +1,194 @@
+"""One trial: sampled settings -> configs -> training with a report per epoch -> prune or finish -> record.
+
+The training loop knows nothing of pruning: it yields one record per epoch, and this module decides,
+by asking the optuna trial, whether to leave the loop.
+"""
+
+from __future__ import annotations
+
+import os
+import socket
+import time
+import traceback
+from dataclasses import dataclass
+from datetime import datetime, timezone
+
+import numpy as np
+import optuna
+
+from sweep.inputs import StudyInputs
+from sweep.records import EpochRow, TrialRecord
+from sweep.space import params_to_configs, suggest_params
+from trainers.fit import FitResult, train_mlp
+
+__all__ = ["TrialOutcome", "run_trial", "trial_seed", "train_params"]
+
+
+@dataclass(frozen=True)
+class TrialOutcome:
+    """What a worker tells the main process about a finished trial (for the progress display)."""
+
+    number: int
+    state: str
+    objective: float | None
+    seconds: float
+    error: str | None = None
+
+
+def trial_seed(study_seed: int, number: int) -> list[int]:
+    """The seed sequence of a trial: reproducible from the record alone."""
+    return [int(study_seed), int(number)]
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+
+
+def _finite_or_none(value) -> float | None:
+    if value is None:
+        return None
+    value = float(value)
+    return value if np.isfinite(value) else None
+
+
+def train_params(spec, inputs: StudyInputs, params: dict, seed: list[int]):
+    """Build the configs of one setting and return its training run (an iterable of epochs)."""
+    mlp_config, train_config = params_to_configs(
+        params,
+        n_inputs=inputs.n_inputs,
+        n_outputs=inputs.n_outputs,
+        task=inputs.task,
+        training=spec.training,
+    )
+    rng = np.random.default_rng(seed)
+    return train_mlp(
+        mlp_config,
+        train_config,
+        inputs.X["train"],
+        inputs.y["train"],
+        inputs.X["valid"],
+        inputs.y["valid"],
+        rng=rng,
+        valid_score=inputs.scorer("valid"),
+    )
+
+
+def valid_forecasts(inputs: StudyInputs, result: FitResult) -> np.ndarray:
+    """The best network's forecasts on the validation window, as the record keeps them."""
+    network = result.network
+    X = inputs.X["valid"]
+    raw = network.predict_proba(X) if inputs.task == "classification" else network.predict(X)
+    return inputs.forecasts(raw)
+
+
+def _trial_record(spec, trial_number, params, seed, state, result, started, t0, error=None):
+    epochs = ()
+    fields = dict(best_epoch=0, n_epochs=0, stop_reason="error", objective=None,
+                  train_loss=None, valid_loss=None, gap=None, gap_ratio=None)
+    if result is not None:
+        epochs = tuple(
+            EpochRow(
+                epoch=int(e.index),
+                train_loss=float(e.train_loss),
+                valid_loss=float(e.valid_loss),
+                valid_score=_finite_or_none(e.valid_score),
+                seconds=float(e.seconds),
+            )
+            for e in result.history
+        )
+        fields.update(
+            best_epoch=int(result.best_epoch),
+            n_epochs=len(result.history),
+            stop_reason="pruned" if state == "pruned" else result.stop_reason,
+            objective=_finite_or_none(result.valid_score),
+            train_loss=_finite_or_none(result.train_loss),
+            valid_loss=_finite_or_none(result.valid_loss),
+            gap=_finite_or_none(result.gap),
+            gap_ratio=_finite_or_none(result.gap_ratio),
+        )
+    return TrialRecord(
+        study=spec.study.name,
+        number=int(trial_number),
+        state=state,
+        params=dict(params),
+        seed=list(seed),
+        started=started,
+        finished=_now(),
+        seconds=time.perf_counter() - t0,
+        error=error,
+        epochs=epochs,
+        worker=f"{socket.gethostname()}:{os.getpid()}",
+        **fields,
+    )
+
+
+def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=None) -> TrialOutcome:
+    """Ask the study for one trial, train it, record it, and tell the study how it ended.
+
+    The record is written before optuna is told, so a trial optuna calls finished is always in the
+    record. A trial that raises is recorded as failed with its traceback; the sweep goes on.
+
+    Args:
+        study: the optuna study (any storage).
+        spec: the `StudySpec`.
+        inputs: the study's arrays.
+        tracker: an open `Tracker` of the record.
+        stop: optional object with `is_set()`; when set, the trial is left at the next epoch,
+            recorded as failed with the error "interrupted", and its settings queued again.
+
+    Returns:
+        A TrialOutcome for the progress display.
+    """
+    trial = study.ask()
+    started, t0 = _now(), time.perf_counter()
+    seed = trial_seed(spec.study.seed, trial.number)
+    params: dict = {}
+    result = None
+    try:
+        params = suggest_params(trial, spec.space)
+        run = train_params(spec, inputs, params, seed)
+        state = "complete"
+        for epoch in run:
+            if epoch.valid_score is not None and np.isfinite(epoch.valid_score):
+                trial.report(float(epoch.valid_score), int(epoch.index))
+                if trial.should_prune():
+                    state = "pruned"
+                    break
+            if stop is not None and stop.is_set():
+                state = "interrupted"
+                break
+        result = run.result()
+        if state == "interrupted":
+            raise KeyboardInterrupt
+        if state == "complete" and _finite_or_none(result.valid_score) is None:
+            raise FloatingPointError(
+                f"training diverged before any finite validation score (stop reason "
+                f"{result.stop_reason}); lower space.learning_rate or narrow its range"
+            )
+    except KeyboardInterrupt:
+        record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0,
+                               error="interrupted: the run was stopped before this trial finished")
+        tracker.record_trial(record)
+        trial.set_user_attr("interrupted", True)
+        study.tell(trial, state=optuna.trial.TrialState.FAIL)
+        if params:
+            study.enqueue_trial(params, skip_if_exists=False)
+        return TrialOutcome(trial.number, "interrupted", None, record.seconds, record.error)
+    except Exception:
+        error = traceback.format_exc(limit=8)
+        record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0, error=error)
+        tracker.record_trial(record)
+        trial.set_user_attr("error", error[-4000:])
+        study.tell(trial, state=optuna.trial.TrialState.FAIL)
+        return TrialOutcome(trial.number, "failed", None, record.seconds, error.strip().splitlines()[-1])
+
+    record = _trial_record(spec, trial.number, params, seed, state, result, started, t0)
+    forecasts = valid_forecasts(inputs, result) if result.best_epoch > 0 else None
+    weights = result.network.to_arrays() if state == "complete" else None
+    record = record.__class__(**{**record.__dict__, "valid_forecasts": forecasts, "weights": weights})
+    tracker.record_trial(record)
+    if state == "pruned":
+        study.tell(trial, state=optuna.trial.TrialState.PRUNED)
+    else:
+        study.tell(trial, record.objective)
+    return TrialOutcome(trial.number, state, record.objective, record.seconds)
