@@ -4,6 +4,9 @@ This is the only module that imports ``sqlite_utils``; nothing else in the proje
 Our tables carry a ``vs_`` prefix so optuna's own tables (``studies``, ``trials``, ...) can live
 in the same file: a study copied as its one ``.sqlite`` file is complete.
 
+SQLite keeps NaN as NULL: a NaN trial loss or objective reads back as None, a NaN epoch loss
+as NaN. Arrays read back bit for bit.
+
 Open one ``Tracker`` per process (and per thread). Every write runs in one ``BEGIN IMMEDIATE``
 transaction, so several worker processes can write to one file (WAL, 30 s busy timeout).
 
@@ -78,7 +81,11 @@ class Tracker(ReviewsMixin):
             conn.execute("PRAGMA synchronous=NORMAL")
         except sqlite3.DatabaseError as exc:
             raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
-        tracker = cls(sqlite_utils.Database(conn), create=create)
+        try:
+            tracker = cls(sqlite_utils.Database(conn), create=create)
+        except BaseException:
+            conn.close()
+            raise
         tracker.location = str(path)  # messages name the file as the user gave it
         return tracker
 
