@@ -24,21 +24,8 @@ import pandas as pd
 from scipy import stats
 
 __all__ = [
-    "LOSSES",
-    "DMResult",
-    "MCSResult",
-    "SPAResult",
-    "accuracy",
-    "cross_entropy",
-    "deviance",
-    "diebold_mariano",
-    "loss_series",
-    "mae",
-    "model_confidence_set",
-    "mse",
-    "mse_log",
-    "mz_r2",
-    "qlike",
+    "LOSSES", "DMResult", "MCSResult", "SPAResult", "accuracy", "cross_entropy", "deviance",
+    "diebold_mariano", "loss_series", "mae", "model_confidence_set", "mse", "mse_log", "mz_r2", "qlike",
     "superior_predictive_ability",
 ]
 
@@ -53,29 +40,21 @@ def _pair(y, f, *, positive: bool = False, what: str = "") -> tuple[np.ndarray, 
     y_arr = np.asarray(y, dtype=np.float64)
     f_arr = np.asarray(f, dtype=np.float64)
     if y_arr.shape != f_arr.shape:
-        raise ValueError(
-            f"y and f must have the same shape, got y {y_arr.shape} and f {f_arr.shape}; "
-            "pass the target and the forecast for the same rows and horizons"
-        )
+        raise ValueError(f"y and f must have the same shape, got y {y_arr.shape} and f {f_arr.shape}; "
+                         "pass the target and the forecast for the same rows and horizons")
     if y_arr.ndim not in (1, 2) or y_arr.shape[0] == 0:
-        raise ValueError(
-            f"y and f must be non-empty arrays of shape (n_samples,) or (n_samples, n_outputs), "
-            f"got shape {y_arr.shape}; reshape the inputs"
-        )
+        raise ValueError(f"y and f must be non-empty arrays of shape (n_samples,) or (n_samples, n_outputs), "
+                         f"got shape {y_arr.shape}; reshape the inputs")
     for name, arr in (("y", y_arr), ("f", f_arr)):
         bad = ~np.isfinite(arr)
         if bad.any():
-            raise ValueError(
-                f"{name} has {int(bad.sum())} non-finite values (NaN or inf) of {arr.size}; "
-                "drop those rows before scoring"
-            )
+            raise ValueError(f"{name} has {int(bad.sum())} non-finite values (NaN or inf) of {arr.size}; "
+                             "drop those rows before scoring")
         if positive and (arr <= 0).any():
             n_bad = int((arr <= 0).sum())
-            raise ValueError(
-                f"{what} needs level variances > 0, but {name} has {n_bad} values <= 0 "
-                f"(smallest {arr.min():.6g}); pass variances in level units (not log), "
-                "floored at a small positive value"
-            )
+            raise ValueError(f"{what} needs level variances > 0, but {name} has {n_bad} values <= 0 "
+                             f"(smallest {arr.min():.6g}); pass variances in level units (not log), "
+                             "floored at a small positive value")
     return y_arr, f_arr
 
 
@@ -154,10 +133,8 @@ def mz_r2(y, f) -> float:
     y_arr, f_arr = _pair(y, f)
     if y_arr.ndim == 2:
         if y_arr.shape[1] != 1:
-            raise ValueError(
-                f"mz_r2 takes one forecast column, got shape {y_arr.shape}; "
-                "call it once per horizon, e.g. mz_r2(y[:, j], f[:, j])"
-            )
+            raise ValueError(f"mz_r2 takes one forecast column, got shape {y_arr.shape}; "
+                             "call it once per horizon, e.g. mz_r2(y[:, j], f[:, j])")
         y_arr, f_arr = y_arr[:, 0], f_arr[:, 0]
     if y_arr.size < 3:
         raise ValueError(f"mz_r2 needs at least 3 rows, got {y_arr.size}; score a longer window")
@@ -178,10 +155,8 @@ def _labels(labels, n_rows: int | None = None) -> np.ndarray:
     if not np.issubdtype(arr.dtype, np.integer):
         as_float = arr.astype(np.float64)
         if not np.all(np.isfinite(as_float)) or not np.all(as_float == np.round(as_float)):
-            raise ValueError(
-                f"labels must be integer class indices 0..n_classes-1, got dtype {arr.dtype}; "
-                "pass regime_labels(...) output"
-            )
+            raise ValueError(f"labels must be integer class indices 0..n_classes-1, got dtype {arr.dtype}; "
+                             "pass regime_labels(...) output")
         arr = as_float.astype(np.int64)
     if n_rows is not None and arr.shape[0] != n_rows:
         raise ValueError(f"labels has {arr.shape[0]} rows but the predictions have {n_rows}; align the rows")
@@ -194,18 +169,14 @@ def _proba(labels, proba) -> tuple[np.ndarray, np.ndarray]:
         raise ValueError(f"proba must have shape (n_samples, n_classes), got {p.shape}; pass predict_proba output")
     lab = _labels(labels, p.shape[0])
     if lab.min() < 0 or lab.max() >= p.shape[1]:
-        raise ValueError(
-            f"labels must lie in 0..{p.shape[1] - 1} for {p.shape[1]} probability columns, "
-            f"got range {lab.min()}..{lab.max()}; check n_classes"
-        )
+        raise ValueError(f"labels must lie in 0..{p.shape[1] - 1} for {p.shape[1]} probability columns, "
+                         f"got range {lab.min()}..{lab.max()}; check n_classes")
     if not np.all(np.isfinite(p)) or (p < 0).any() or (p > 1).any():
         raise ValueError("proba must hold finite probabilities in [0, 1]; pass predict_proba output")
     sums = p.sum(axis=1)
     if np.abs(sums - 1.0).max() > PROBA_SUM_TOL:
-        raise ValueError(
-            f"each row of proba must sum to 1 (within {PROBA_SUM_TOL}), worst row sums to "
-            f"{sums[np.argmax(np.abs(sums - 1.0))]:.6g}; apply softmax before scoring"
-        )
+        raise ValueError(f"each row of proba must sum to 1 (within {PROBA_SUM_TOL}), worst row sums to "
+                         f"{sums[np.argmax(np.abs(sums - 1.0))]:.6g}; apply softmax before scoring")
     return lab, p
 
 
@@ -318,24 +289,14 @@ def diebold_mariano(loss_a, loss_b, *, horizon: int = 1, alternative: str = "two
     for k in range(1, h):
         lrv += 2.0 * float(u[k:] @ u[:-k]) / t
     if not lrv > 0.0:
-        raise ValueError(
-            f"long-run variance of the loss differential is {lrv:.6g} (must be > 0) for {t} rows, "
-            f"horizon {h}; the two loss series are identical or too short for this horizon"
-        )
+        raise ValueError(f"long-run variance of the loss differential is {lrv:.6g} (must be > 0) for {t} rows, "
+                         f"horizon {h}; the two loss series are identical or too short for this horizon")
     dm = dbar / np.sqrt(lrv / t)
     factor = np.sqrt((t + 1 - 2 * h + h * (h - 1) / t) / t)
     hln = dm * factor
-    return DMResult(
-        statistic=float(dm),
-        pvalue=_pvalue(float(dm), stats.norm, alternative),
-        hln_statistic=float(hln),
-        hln_pvalue=_pvalue(float(hln), stats.t(df=t - 1), alternative),
-        mean_diff=dbar,
-        n=int(t),
-        horizon=h,
-        long_run_variance=lrv,
-        alternative=alternative,
-    )
+    return DMResult(statistic=float(dm), pvalue=_pvalue(float(dm), stats.norm, alternative),
+                    hln_statistic=float(hln), hln_pvalue=_pvalue(float(hln), stats.t(df=t - 1), alternative),
+                    mean_diff=dbar, n=int(t), horizon=h, long_run_variance=lrv, alternative=alternative)
 
 
 # ----------------------------------------------------------------------------- MCS and SPA (arch)
@@ -393,15 +354,8 @@ def _check_common(size: float, reps: int, seed: int) -> None:
         raise ValueError(f"seed must be an int, got {seed!r}")
 
 
-def model_confidence_set(
-    losses: pd.DataFrame,
-    *,
-    size: float = 0.10,
-    reps: int = 1000,
-    seed: int = 0,
-    block_size: int | None = None,
-    method: str = "R",
-) -> MCSResult:
+def model_confidence_set(losses: pd.DataFrame, *, size: float = 0.10, reps: int = 1000, seed: int = 0,
+                         block_size: int | None = None, method: str = "R") -> MCSResult:
     """The set of models not beaten at level ``size``, from a T x models table of losses.
 
     Args:
@@ -423,26 +377,13 @@ def model_confidence_set(
     mcs = MCS(frame, size=size, reps=int(reps), block_size=block_size, method=method, seed=int(seed))
     mcs.compute()
     pv = mcs.pvalues.iloc[:, 0]
-    return MCSResult(
-        included=tuple(str(n) for n in mcs.included),
-        excluded=tuple(str(n) for n in mcs.excluded),
-        pvalues={str(k): float(v) for k, v in pv.items()},
-        size=float(size),
-        reps=int(reps),
-        seed=int(seed),
-        method=method,
-    )
+    return MCSResult(included=tuple(str(n) for n in mcs.included), excluded=tuple(str(n) for n in mcs.excluded),
+                     pvalues={str(k): float(v) for k, v in pv.items()}, size=float(size), reps=int(reps),
+                     seed=int(seed), method=method)
 
 
-def superior_predictive_ability(
-    bench_losses,
-    model_losses: pd.DataFrame,
-    *,
-    reps: int = 1000,
-    seed: int = 0,
-    size: float = 0.05,
-    block_size: int | None = None,
-) -> SPAResult:
+def superior_predictive_ability(bench_losses, model_losses: pd.DataFrame, *, reps: int = 1000, seed: int = 0,
+                                size: float = 0.05, block_size: int | None = None) -> SPAResult:
     """Does any model beat the benchmark? Hansen's SPA test through ``arch.bootstrap.SPA``.
 
     Args:
@@ -465,10 +406,6 @@ def superior_predictive_ability(
     spa.compute()
     better = spa.better_models(pvalue=size, pvalue_type="consistent")
     names = list(frame.columns)
-    return SPAResult(
-        pvalues={str(k): float(v) for k, v in spa.pvalues.items()},
-        better_models=tuple(names[int(i)] for i in np.asarray(better).reshape(-1)),
-        size=float(size),
-        reps=int(reps),
-        seed=int(seed),
-    )
+    return SPAResult(pvalues={str(k): float(v) for k, v in spa.pvalues.items()},
+                     better_models=tuple(names[int(i)] for i in np.asarray(better).reshape(-1)),
+                     size=float(size), reps=int(reps), seed=int(seed))
