@@ -224,7 +224,6 @@ def check_prices(frame: pd.DataFrame, *, min_rows: int = 0, lines: Sequence[int]
     n = len(frame)
     line_no = np.arange(2, n + 2) if lines is None else np.asarray(lines)
     dates = frame.index.as_unit(DATE_UNIT)
-    texts = [t if isinstance(t, str) else "" for t in dates.strftime("%Y-%m-%d")]
     values, bad = {}, {}
     for col in frame.columns:
         s = frame[col]
@@ -239,7 +238,7 @@ def check_prices(frame: pd.DataFrame, *, min_rows: int = 0, lines: Sequence[int]
     for i in np.flatnonzero(dates.isna()):
         problems.append(Problem("missing date (NaT)", FIX_DATE, int(line_no[i])))
     problems += _size_problems(n, min_rows)
-    problems += _row_problems(dates, values, bad, line_no, texts)
+    problems += _row_problems(dates, values, bad, line_no, None)
     return _sorted(problems)
 
 
@@ -256,12 +255,21 @@ def _size_problems(n: int, min_rows: int) -> list[Problem]:
     return []
 
 
-def _row_problems(dates, values: dict, bad: dict, line_no, texts) -> list[Problem]:
-    """Non-finite, non-positive, OHLC bound and date order problems; ``bad`` marks cells reported already."""
+def _row_problems(dates, values: dict, bad: dict, line_no, texts: list[str] | None) -> list[Problem]:
+    """Non-finite, non-positive, OHLC bound and date order problems; ``bad`` marks cells reported already.
+
+    ``texts`` holds the dates as written in the file; None writes them from ``dates``.
+    """
     out = []
+    dates = pd.DatetimeIndex(dates)
+
+    def text(i):
+        if texts is not None:
+            return texts[i] or None
+        return None if pd.isna(dates[i]) else dates[i].strftime("%Y-%m-%d")
 
     def add(i, message, fix, column=None):
-        out.append(Problem(message, fix, int(line_no[i]), texts[i] or None, column))
+        out.append(Problem(message, fix, int(line_no[i]), text(i), column))
 
     for col, v in values.items():
         fresh = ~bad[col]
@@ -283,9 +291,13 @@ def _row_problems(dates, values: dict, bad: dict, line_no, texts) -> list[Proble
         for i in np.flatnonzero(ok & (lo > bottom)):
             add(i, f"low {float(lo[i])!r} above min(open, close) = {float(bottom[i])!r}",
                 "correct low (low <= open, close) or drop the row", "low")
+    keys = dates.asi8
+    known = ~dates.isna()
+    if known.all() and (np.diff(keys) > 0).all():
+        return out
     first_seen, latest, latest_i = {}, None, None
     nat = pd.NaT.value
-    for i, key in enumerate(pd.DatetimeIndex(dates).asi8.tolist()):
+    for i, key in enumerate(keys.tolist()):
         if key == nat:
             continue
         d = key
@@ -293,7 +305,7 @@ def _row_problems(dates, values: dict, bad: dict, line_no, texts) -> list[Proble
             add(i, f"duplicate date, also on line {int(line_no[first_seen[key]])}",
                 "keep one row per date", DATE_COLUMN)
         elif latest is not None and d < latest:
-            add(i, f"dates not strictly increasing: earlier than {texts[latest_i]} on line "
+            add(i, f"dates not strictly increasing: earlier than {text(latest_i)} on line "
                    f"{int(line_no[latest_i])}", "sort the file by date, oldest first", DATE_COLUMN)
         if key not in first_seen:
             first_seen[key] = i
@@ -348,9 +360,15 @@ def _parse_dates(texts: list[str], date_format: str | None):
     """Dates (NaT where bad), per-row problems as (i, message), and a whole-file problem or None."""
     s = pd.Series(texts, dtype=object)
     formats = [date_format] if date_format else list(DATE_FORMATS)
-    parsed = {f: pd.to_datetime(s, format=f, errors="coerce") for f in formats}
+    parsed = {}
+    for f in formats:   # stop at the first format that reads every date (the common case)
+        parsed[f] = pd.to_datetime(s, format=f, errors="coerce")
+        if parsed[f].notna().all() and f != "%d/%m/%Y":
+            break
+    if "%d/%m/%Y" in parsed and "%m/%d/%Y" not in parsed and not date_format:
+        parsed["%m/%d/%Y"] = pd.to_datetime(s, format="%m/%d/%Y", errors="coerce")
     counts = {f: int(p.notna().sum()) for f, p in parsed.items()}
-    best = max(formats, key=lambda f: counts[f])   # max keeps the first of equal counts
+    best = max(parsed, key=lambda f: counts[f])   # max keeps the first of equal counts
     filled = [t for t in texts if t]
     if counts[best] == 0 and filled:
         fmt = f"date_format={date_format!r}" if date_format else "a known format"
@@ -363,7 +381,7 @@ def _parse_dates(texts: list[str], date_format: str | None):
     row_problems = []
     for i in np.flatnonzero(parsed[best].isna().to_numpy()):
         t = texts[i]
-        other = [f for f in formats if f != best and not pd.isna(parsed[f].iloc[i])]
+        other = [f for f in DATE_FORMATS if f != best and not pd.isna(pd.to_datetime(t, format=f, errors="coerce"))]
         if not t:
             row_problems.append((i, "missing date"))
         elif other and not date_format:
@@ -386,6 +404,16 @@ def _to_number(cell: str) -> tuple[float, str | None]:
     if NUMBER_RE.fullmatch(cell):
         return float(cell), None
     return math.nan, f"non-numeric value {cell!r}"
+
+
+def _to_numbers(column: list[str], skip: np.ndarray) -> list[tuple[float, str | None]]:
+    """``_to_number`` for a column; a fast path when every cell is a plain number."""
+    if not skip.any() and "_" not in "".join(column):
+        try:
+            return [(float(c), None) for c in column]
+        except ValueError:
+            pass
+    return [(math.nan, None) if skip[i] else _to_number(c) for i, c in enumerate(column)]
 
 
 def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min_rows=0, date_format=None,
@@ -462,7 +490,7 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
     for name, j in position.items():
         if name == DATE_COLUMN:
             continue
-        parsed = [(math.nan, None) if misfit[i] else _to_number(r[j]) for i, r in enumerate(cells)]
+        parsed = _to_numbers([r[j] for r in cells], misfit)
         errors = [(i, e) for i, (_, e) in enumerate(parsed) if e]
         if name not in REQUIRED_COLUMNS and errors and all(not e.startswith("missing") for _, e in errors) \
                 and len(errors) == len(cells):
@@ -479,8 +507,7 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
                                         date_texts[i] or None, name))
     if structural or not body:
         raise PriceFileError(source, _sorted(structural + ([] if body else _size_problems(0, min_rows))))
-    texts = [t if t else "" for t in date_texts]
-    row_problems += _row_problems(dates, values, bad, lines, texts)
+    row_problems += _row_problems(dates, values, bad, lines, date_texts)
     order = [c for c in REQUIRED_COLUMNS] + [c for c in values if c not in REQUIRED_COLUMNS]
     frame = pd.DataFrame({c: values[c] for c in order}, index=pd.DatetimeIndex(dates, name=DATE_COLUMN))
     dropped: tuple[Problem, ...] = ()
