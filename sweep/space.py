@@ -221,7 +221,8 @@ def check_value(path: str, value: Any, rule: SettingRule, problems: list[str]) -
         problems.append(f"{path}: must be {want}, got {format_value(value)}")
         return None
     if rule.kind == "int" and not isinstance(value, int):
-        problems.append(f"{path}: must be {want}, got {format_value(value)}; write it without a decimal point")
+        hint = "; write it without a decimal point" if float(value).is_integer() else ""
+        problems.append(f"{path}: must be {want}, got {format_value(value)}{hint}")
         return None
     value = int(value) if rule.kind == "int" else float(value)
     if rule.kind == "float" and not math.isfinite(value):
@@ -237,7 +238,8 @@ def check_value(path: str, value: Any, rule: SettingRule, problems: list[str]) -
 
 def _parse_choice(path: str, raw: list, rule: SettingRule, problems: list[str]) -> Setting | None:
     if not raw:
-        problems.append(f"{path}: the list is empty; give at least one value, e.g. {path.split('.')[-1]} = [{format_value(rule.default)}]")
+        example = f"{path.split('.')[-1]} = [{format_value(rule.default)}]"
+        problems.append(f"{path}: the list is empty; give at least one value, e.g. {example}")
         return None
     n_before = len(problems)
     values = [check_value(path, v, rule, problems) for v in raw]

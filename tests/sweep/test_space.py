@@ -91,7 +91,7 @@ def test_suggest_params_on_the_demo_space_with_tpe():
     assert len(study.trials) == 8
     for trial in study.trials:
         assert trial.state == optuna.trial.TrialState.COMPLETE
-        assert 4 <= trial.params["hidden_units"] <= 24 and 0.0 <= trial.params["dropout"] <= 0.3
+        assert 4 <= trial.params["hidden_units"] <= 32 and 0.0 <= trial.params["dropout"] <= 0.3
         assert "activation" not in trial.params
 
 

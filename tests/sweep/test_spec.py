@@ -64,7 +64,7 @@ def test_load_spec_demo_file_parses_with_its_values():
         for key, value in raw[section].items():
             got = getattr(getattr(spec, section), key)
             assert (list(got) if isinstance(got, tuple) else got) == value, f"{section}.{key}"
-    assert spec.study.trials == 24 and spec.study.workers == 2 and spec.training.max_epochs == 60
+    assert spec.study.trials == 120 and spec.study.workers == 2 and spec.training.max_epochs == 100
     # the data path starts at the study file's folder
     assert spec.data.file == DEMO.parent / "data" / "harbor_index.csv"
     assert spec.data.file_as_written == "data/harbor_index.csv"
