@@ -287,7 +287,7 @@ def _parse_range(path: str, raw: Mapping, rule: SettingRule, problems: list[str]
     if log and low <= 0:
         problems.append(f"{path}: a log range needs low > 0, got low={format_value(low)}; raise low or drop log")
         return None
-    if log and step is not None and step != 1:
+    if log and step is not None and (rule.kind == "float" or step != 1):  # as optuna allows
         problems.append(f"{path}: a log range cannot have a step, got step={format_value(step)}; drop one of them")
         return None
     if step is not None:

@@ -218,6 +218,8 @@ def test_float_setting_forms(value, expected):
         ("{ low = 0.001 }", r"space\.learning_rate: a range needs both low and high"),
         ("{ low = 0.001, hgih = 0.01 }", r"unknown key space\.learning_rate\.hgih; did you mean space\.learning_rate\.high\?"),
         ("{ low = 0.001, high = 0.01, log = true, step = 0.001 }", r"a log range cannot have a step"),
+        # optuna's suggest_float refuses any step with log = true, even 1.0 (checked with optuna 5.0.0)
+        ("{ low = 0.5, high = 3.5, log = true, step = 1.0 }", r"a log range cannot have a step, got step=1\.0"),
         ("[]", r"space\.learning_rate: the list is empty"),
         ("[0.01, 0.01]", r"space\.learning_rate: the list repeats a value"),
     ],
