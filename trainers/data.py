@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = [
-    "REQUIRED_COLUMNS", "DATE_COLUMN", "BAD_ROWS", "Problem", "PriceFileError", "PriceData",
+    "REQUIRED_COLUMNS", "DATE_COLUMN", "DATE_UNIT", "BAD_ROWS", "Problem", "PriceFileError", "PriceData",
     "load_prices", "check_prices", "read_prices_csv_text", "frame_to_csv_text", "sha256_file",
 ]
 
@@ -212,8 +212,7 @@ def check_prices(frame: pd.DataFrame, *, min_rows: int = 0, lines: Sequence[int]
     Returns:
         Problems in row order, whole-frame problems first.
     """
-    if isinstance(min_rows, bool) or not isinstance(min_rows, (int, np.integer)) or min_rows < 0:
-        raise ValueError(f"min_rows must be an integer >= 0, got {min_rows=!r}")
+    _check_min_rows(min_rows)
     problems = []
     missing = [c for c in REQUIRED_COLUMNS if c not in frame.columns]
     if missing:
@@ -240,6 +239,11 @@ def check_prices(frame: pd.DataFrame, *, min_rows: int = 0, lines: Sequence[int]
     problems += _size_problems(n, min_rows)
     problems += _row_problems(dates, values, bad, line_no, None)
     return _sorted(problems)
+
+
+def _check_min_rows(min_rows) -> None:
+    if isinstance(min_rows, bool) or not isinstance(min_rows, (int, np.integer)) or min_rows < 0:
+        raise ValueError(f"min_rows must be an integer >= 0, got {min_rows=!r}")
 
 
 def _sorted(problems: list[Problem]) -> list[Problem]:
@@ -320,7 +324,7 @@ def _missing_column(name: str, headers: list[str], mapped: str | None) -> Proble
     found = f"; nearest header found: {headers[[h.lower() for h in headers].index(near[0])]!r}" if near else ""
     if mapped is not None:
         return Problem(f"columns maps {name!r} to {mapped!r}, which is not in the header{found}",
-                       "fix the header named in columns=", column=name)
+                       "give in columns= a header the file has", column=name)
     hint = near[0] if near else "YOUR_HEADER"
     if name == DATE_COLUMN and "" in headers:
         return Problem(f"missing required column {name!r}; column {headers.index('') + 1} has no header",
@@ -335,7 +339,7 @@ def _decode(raw: bytes) -> tuple[str | None, list[Problem]]:
     if raw[:4] == b"PK\x03\x04":
         return None, [Problem("the file is a zip archive (perhaps a spreadsheet), not CSV text",
                               "export the sheet as comma-separated values (CSV)")]
-    if b"\x00" in raw[:65536]:
+    if b"\x00" in raw:
         return None, [Problem("the file holds binary data (NUL bytes), not CSV text",
                               "give a comma-separated text file")]
     try:
@@ -416,26 +420,8 @@ def _to_numbers(column: list[str], skip: np.ndarray) -> list[tuple[float, str | 
     return [(math.nan, None) if skip[i] else _to_number(c) for i, c in enumerate(column)]
 
 
-def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min_rows=0, date_format=None,
-                 ignore_columns=()) -> tuple[pd.DataFrame, tuple[Problem, ...]]:
-    if bad_rows not in BAD_ROWS:
-        raise ValueError(f"bad_rows must be one of {BAD_ROWS}, got {bad_rows=!r}")
-    if isinstance(min_rows, bool) or not isinstance(min_rows, (int, np.integer)) or min_rows < 0:
-        raise ValueError(f"min_rows must be an integer >= 0, got {min_rows=!r}")
-    text, problems = _decode(raw)
-    if text is None:
-        raise PriceFileError(source, problems)
-    rows = _read_rows(text)
-    if not rows:
-        raise PriceFileError(source, [Problem("the file is empty", "write a header line and daily rows into it")])
-    header_line, header = rows[0]
-    body = rows[1:]
-    if len(header) == 1:
-        for sep, name in ((";", "semicolons"), ("\t", "tabs"), ("|", "bars")):
-            if sep in header[0]:
-                raise PriceFileError(source, [Problem(
-                    f"the header is one field separated by {name}, not commas: {header[0][:60]!r}",
-                    "save the file with commas as separators", header_line)])
+def _resolve_header(header: list[str], header_line: int, columns, ignore_columns):
+    """Our column name -> field position, and the problems of the header itself."""
     keys = [h.lower() for h in header]
     structural: list[Problem] = []
     seen = {}
@@ -453,6 +439,12 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
             position[name] = keys.index(wanted)
         else:
             structural.append(_missing_column(name, header, _mapped_header(columns, name)))
+    for ours, theirs in mapping.items():
+        if ours not in position and ours not in REQUIRED_COLUMNS + (DATE_COLUMN,) and theirs not in keys:
+            structural.append(_missing_column(ours, header, _mapped_header(columns, ours)))
+    if len(set(mapping.values())) < len(mapping):
+        structural.append(Problem(f"columns maps two names to one header: {dict(columns)!r}",
+                                  "map each header once", column=None))
     taken = {mapping.get(n, n) for n in (DATE_COLUMN, *REQUIRED_COLUMNS)}
     reverse = {theirs: ours for ours, theirs in mapping.items()}
     for j, k in enumerate(keys):
@@ -466,6 +458,33 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
                                       header_line, column=header[j]))
         else:
             position[ours] = j
+    return position, structural
+
+
+def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min_rows=0, date_format=None,
+                 ignore_columns=()) -> tuple[pd.DataFrame, tuple[Problem, ...]]:
+    if bad_rows not in BAD_ROWS:
+        raise ValueError(f"bad_rows must be one of {BAD_ROWS}, got {bad_rows=!r}")
+    _check_min_rows(min_rows)
+    text, problems = _decode(raw)
+    if text is None:
+        raise PriceFileError(source, problems)
+    try:
+        rows = _read_rows(text)
+    except csv.Error as err:
+        raise PriceFileError(source, [Problem(f"the file is not readable as CSV ({err})",
+                                              "give a comma-separated text file")]) from None
+    if not rows:
+        raise PriceFileError(source, [Problem("the file is empty", "write a header line and daily rows into it")])
+    header_line, header = rows[0]
+    body = rows[1:]
+    if len(header) == 1:
+        for sep, name in ((";", "semicolons"), ("\t", "tabs"), ("|", "bars")):
+            if sep in header[0]:
+                raise PriceFileError(source, [Problem(
+                    f"the header is one field separated by {name}, not commas: {header[0][:60]!r}",
+                    "save the file with commas as separators", header_line)])
+    position, structural = _resolve_header(header, header_line, columns, ignore_columns)
     n_fields = len(header)
     lines = np.array([ln for ln, _ in body], dtype=int)
     cells = [r + [""] * (n_fields - len(r)) for _, r in body]
@@ -503,10 +522,12 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
         bad[name] = misfit.copy()
         for i, e in errors:
             bad[name][i] = True
-            row_problems.append(Problem(e, "fill in a number or drop the row", int(lines[i]),
-                                        date_texts[i] or None, name))
-    if structural or not body:
-        raise PriceFileError(source, _sorted(structural + ([] if body else _size_problems(0, min_rows))))
+            fix = "fill in a number or drop the row"
+            if name not in REQUIRED_COLUMNS:
+                fix += f", or pass ignore_columns=[{header[j]!r}]"
+            row_problems.append(Problem(e, fix, int(lines[i]), date_texts[i] or None, name))
+    if structural or not body:   # the row problems found so far are listed too
+        raise PriceFileError(source, _sorted(structural + row_problems + ([] if body else _size_problems(0, 0))))
     row_problems += _row_problems(dates, values, bad, lines, date_texts)
     order = [c for c in REQUIRED_COLUMNS] + [c for c in values if c not in REQUIRED_COLUMNS]
     frame = pd.DataFrame({c: values[c] for c in order}, index=pd.DatetimeIndex(dates, name=DATE_COLUMN))
@@ -517,7 +538,8 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
         dropped, row_problems = tuple(_sorted(row_problems)), []
     size = _size_problems(len(frame), min_rows)
     if bad_rows == "drop" and size and len(frame) == 0 and dropped:
-        size = [Problem("every row was dropped as bad", "correct the rows listed in the file")]
+        size = [Problem(f"every row has a problem ({len(dropped)} found; first: {dropped[0]})",
+                        "correct the rows, or check that the file holds daily prices")]
     problems = _sorted(size + row_problems)
     if problems:
         raise PriceFileError(source, problems)

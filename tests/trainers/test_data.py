@@ -245,3 +245,38 @@ def test_arch_sp500_loads_cleanly(tmp_path):
         load_prices(path)
     (problem,) = info.value.problems
     assert (problem.line, problem.date, problem.column) == (102, sp500.index[100].strftime("%Y-%m-%d"), "high")
+
+
+def test_load_prices_lists_row_problems_beside_structural_ones(tmp_path):
+    path = tmp_path / "both.csv"
+    path.write_text("date,open,high,low,close\n2021-01-04,10,11,9,x\n")
+    with pytest.raises(PriceFileError) as info:
+        load_prices(path, columns={"vix": "VolIdx"})
+    assert [(p.line, p.column) for p in info.value.problems] == [(None, "vix"), (2, "close")]
+    assert "columns maps 'vix' to 'VolIdx', which is not in the header" in str(info.value)
+
+
+def test_load_prices_drop_with_every_row_bad_says_so(tmp_path):
+    path = tmp_path / "allbad.csv"
+    path.write_text("date,open,high,low,close\n2021-01-04,10,11,9,x\n2021-01-05,10,11,9,\n")
+    with pytest.raises(PriceFileError, match=r"every row has a problem \(2 found; first: line 2"):
+        load_prices(path, bad_rows="drop")
+
+
+def test_load_prices_partly_text_extra_column_suggests_ignoring_it(tmp_path):
+    path = tmp_path / "notes.csv"
+    path.write_text("date,open,high,low,close,score\n2021-01-04,10,11,9,10,1.5\n2021-01-05,10,11,9,10,high\n")
+    with pytest.raises(PriceFileError) as info:
+        load_prices(path)
+    (problem,) = info.value.problems
+    assert (problem.line, problem.column, problem.message) == (3, "score", "non-numeric value 'high'")
+    assert "ignore_columns=['score']" in problem.fix
+    assert load_prices(path, ignore_columns=["Score"]).frame.columns.tolist() == ["open", "high", "low", "close"]
+
+
+def test_load_prices_unreadable_csv_is_a_price_file_error(tmp_path):
+    # Python's csv module refuses fields longer than csv.field_size_limit() (131072 by default)
+    path = tmp_path / "long.csv"
+    path.write_text("date,open,high,low,close\n2021-01-04," + "1" * 200_000 + ",11,9,10\n")
+    with pytest.raises(PriceFileError, match="not readable as CSV"):
+        load_prices(path)
