@@ -31,7 +31,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from trainers import losses
-from trainers.mlp import MLPConfig, Network, Workspace, decay_mask, forward, init_params, unpack_params
+from trainers.mlp import MLPConfig, Network, Evaluator, Workspace, decay_mask, init_params, unpack_params
 from trainers.optim import OPTIMIZERS, make_optimizer
 
 __all__ = ["TrainConfig", "EpochRecord", "FitResult", "STOP_REASONS", "TrainingRun", "train_mlp", "fit_mlp",
@@ -233,9 +233,18 @@ class _Stack:
         self.workspace = Workspace(cfg, k, b)
         self.shuffled = np.empty((k, n, self.xy.shape[1]), self.dtype)
         self.masks = [np.empty((k, n, h), self.dtype) for h in cfg.hidden] if cfg.dropout > 0 else []
+        # evaluation of the training and validation windows in one pass over their stacked rows
+        self.evaluator = Evaluator(cfg, k, np.concatenate([self.X_train, self.X_valid]))
+        self.eval_ops = self.evaluator.plan(self.weights)
         c = cfg.n_inputs + 1
-        self.batches = [(self.shuffled[:, s:s + b, :c], self.shuffled[:, s:s + b, c:],
-                         [m[:, s:s + b] for m in self.masks] or None) for s in range(0, n, b)]
+        # one flat list of calls for the whole epoch: per batch, gradient then update (see Workspace.plan)
+        update = self.optimizer.plan(self.params, self.workspace.grads)
+        self.ops = []
+        for s in range(0, n, b):
+            masks = [m[:, s:s + b] for m in self.masks] or None
+            self.ops += self.workspace.plan(self.weights, self.shuffled[:, s:s + b, :c],
+                                            self.shuffled[:, s:s + b, c:], masks)
+            self.ops += update
 
     @property
     def finished(self) -> bool:
@@ -255,14 +264,12 @@ class _Stack:
             for m in self.masks:
                 np.greater_equal(m, p, out=m)
                 m *= 1.0 / (1.0 - p)
-            grads, params, weights = self.workspace.grads, self.params, self.weights
-            step, gradients = self.optimizer.step, self.workspace.gradients
-            for xb, yb, mb in self.batches:
-                gradients(weights, xb, yb, mb)
-                step(params, grads)
-            out_train = forward(cfg, params, self.X_train)
-            out_valid = forward(cfg, params, self.X_valid)
-            values = [self._evaluate(out_train[j], out_valid[j]) for j in range(len(self.active))]
+            for op in self.ops:
+                op()
+            for op in self.eval_ops:
+                op()
+            out, n = self.evaluator.out, self.n_train
+            values = [self._evaluate(out[j, :n], out[j, n:]) for j in range(len(self.active))]
         seconds = (time.perf_counter() - t0) / len(self.active)
         records, keep = [], []
         for j, k in enumerate(self.active):

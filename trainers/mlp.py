@@ -16,6 +16,7 @@ by ``1 / (1 - p)`` in training; evaluation uses no dropout.
 from __future__ import annotations
 
 from dataclasses import dataclass, fields
+from functools import partial
 from typing import Sequence
 
 import numpy as np
@@ -36,6 +37,7 @@ __all__ = [
     "decay_mask",
     "forward",
     "Workspace",
+    "Evaluator",
     "loss_and_grad",
 ]
 
@@ -226,14 +228,14 @@ def forward(config: MLPConfig, params: np.ndarray, X: np.ndarray) -> np.ndarray:
     Returns:
         Regression outputs or classification logits, shape (n_samples, n_outputs) or (K, n_samples, n_outputs).
     """
-    h = np.asarray(X, dtype=config.dtype)
-    views = unpack_params(np.asarray(params), config)
+    params = np.asarray(params, dtype=config.dtype)
+    stacked = params.ndim == 2
+    X = np.asarray(X)
+    ev = Evaluator(config, params.shape[0] if stacked else 1, X)
     with np.errstate(over="ignore", invalid="ignore"):
-        for i, w in enumerate(views):
-            z = np.matmul(h, w[..., :-1, :])
-            z += w[..., -1:, :]
-            h = z if i == len(views) - 1 else _activate(config.activation, z, z)
-    return h
+        for op in ev.plan(unpack_params(params if stacked else params[None], config)):
+            op()
+    return ev.out if stacked else ev.out[0]
 
 
 class Network:
@@ -297,10 +299,13 @@ class Network:
 
 
 class Workspace:
-    """Preallocated buffers for training steps of K stacked networks on batches of at most B rows.
+    """Preallocated buffers and precompiled calls for training steps of K stacked networks.
 
-    ``gradients`` writes the gradient of the mean batch loss of every network into ``self.grads``
-    (K, P), with no array allocation. Dropout masks are passed in, already scaled by 1 / (1 - p).
+    ``plan(weights, X, Y, masks)`` returns a list of argument-free callables (numpy ufuncs bound to
+    fixed buffers with ``functools.partial``) that, run in order, write the gradient of the mean batch
+    loss of every network into ``self.grads`` (K, P), with no array allocation. The inputs are views
+    that stay valid (for example rows of an epoch's shuffled copy of the data), so a plan is built once
+    per batch and rerun every epoch. Dropout masks are passed in, already scaled by 1 / (1 - p).
 
     Args:
         config: the networks' shape.
@@ -318,70 +323,114 @@ class Workspace:
         self._z = [np.empty((K, B, h), dt) for h in config.hidden]
         self._a = [np.ones((K, B, h + 1), dt) for h in config.hidden]  # last column stays 1
         self._da = [np.empty((K, B, h), dt) for h in config.hidden]
-        self._tmp = [np.empty((K, B, h), dt) for h in config.hidden]
+        self._deriv = [np.empty((K, B, h), dt) for h in config.hidden]
         self._out = np.empty((K, B, config.n_outputs), dt)
         self._row = np.empty((K, B, 1), dt)
-        self._cache: dict[int, tuple] = {}
 
-    def _views(self, b: int) -> tuple:
-        v = self._cache.get(b)
-        if v is None:
-            hs = self.config.hidden
-            v = ([z[:, :b] for z in self._z], [a[:, :b] for a in self._a],
-                 [a[:, :b, :h] for a, h in zip(self._a, hs)], [d[:, :b] for d in self._da],
-                 [t[:, :b] for t in self._tmp], self._out[:, :b], self._row[:, :b])
-            self._cache[b] = v
-        return v
-
-    def gradients(self, weights: list[np.ndarray], X: np.ndarray, Y: np.ndarray, masks=None) -> None:
-        """Forward in training mode, loss gradient, backward; result in ``self.grads``.
+    def plan(self, weights: list[np.ndarray], X: np.ndarray, Y: np.ndarray, masks=None) -> list:
+        """Calls computing forward (training mode), loss gradient and backward for one batch.
 
         Args:
             weights: per-layer views (K, fan_in + 1, fan_out) of the parameters (``unpack_params``).
-            X: batch inputs with a trailing column of ones, shape (K, b, n_inputs + 1).
+            X: batch inputs with a trailing column of ones, shape (K, b, n_inputs + 1), b <= B.
             Y: regression targets or one-hot labels, shape (K, b, n_outputs).
             masks: None, or per hidden layer the scaled dropout mask (K, b, h).
+
+        Returns:
+            A list of callables; run them in order (``for op in ops: op()``).
         """
         b = X.shape[1]
-        zs, aas, avs, das, tmps, out, row = self._views(b)
-        act = self.config.activation
-        n_hidden = len(zs)
-        hs = []
+        act, ops = self.config.activation, []
         inp = X
-        for i in range(n_hidden):
-            np.matmul(inp, weights[i], out=zs[i])
-            if masks is None:
-                hs.append(_activate(act, zs[i], avs[i]))
-            else:
-                hs.append(_activate(act, zs[i], zs[i]))
-                np.multiply(zs[i], masks[i], out=avs[i])
-            inp = aas[i]
-        np.matmul(inp, weights[n_hidden], out=out)
+        derivs = []
+        for i, h in enumerate(self.config.hidden):
+            z, a, t = self._z[i][:, :b], self._a[i][:, :b], self._deriv[i][:, :b]
+            av = a[..., :h]
+            mask = None if masks is None else masks[i]
+            ops.append(partial(np.matmul, inp, weights[i], z))
+            ops.extend(_activation_ops(act, z, av, t, mask))
+            derivs.append(t)
+            inp = a
+        out = self._out[:, :b]
+        ops.append(partial(np.matmul, inp, weights[-1], out))
         if self.config.task == "classification":
-            losses.inplace_softmax(out, row)
-            losses.inplace_softmax_grad(out, Y, out=out)
+            row = self._row[:, :b]
+            ops += [partial(np.maximum.reduce, out, -1, None, row, True), partial(np.subtract, out, row, out),
+                    partial(np.exp, out, out), partial(np.add.reduce, out, -1, None, row, True),
+                    partial(np.divide, out, row, out), partial(np.subtract, out, Y, out),
+                    partial(np.multiply, out, 1.0 / b, out)]  # (softmax - Y) / b
         else:
-            losses.inplace_mse_grad(out, Y, out=out)
+            ops += [partial(np.subtract, out, Y, out),
+                    partial(np.multiply, out, 2.0 / (b * self.config.n_outputs), out)]  # 2 (f - y) / (b m)
         d = out
-        for i in range(n_hidden, -1, -1):
-            inp = X if i == 0 else aas[i - 1]
-            np.matmul(inp.transpose(0, 2, 1), d, out=self.grad_views[i])
-            if i == 0:
-                break
-            da, t, h = das[i - 1], tmps[i - 1], hs[i - 1]
-            np.matmul(d, weights[i][:, :-1, :].transpose(0, 2, 1), out=da)
-            if masks is not None:
-                da *= masks[i - 1]
-            if act == "relu":
-                np.greater(h, 0, out=t)
-            elif act == "tanh":  # d tanh = 1 - tanh^2
-                np.multiply(h, h, out=t)
-                np.subtract(1.0, t, out=t)
-            else:  # d sigmoid = s (1 - s)
-                np.subtract(1.0, h, out=t)
-                t *= h
-            da *= t
-            d = da
+        for i in range(len(weights) - 1, -1, -1):
+            inp = X if i == 0 else self._a[i - 1][:, :b]
+            ops.append(partial(np.matmul, inp.transpose(0, 2, 1), d, self.grad_views[i]))
+            if i > 0:
+                da = self._da[i - 1][:, :b]
+                ops.append(partial(np.matmul, d, weights[i][:, :-1, :].transpose(0, 2, 1), da))
+                ops.append(partial(np.multiply, da, derivs[i - 1], da))
+                d = da
+        return ops
+
+    def gradients(self, weights: list[np.ndarray], X: np.ndarray, Y: np.ndarray, masks=None) -> None:
+        """Build and run the plan of one batch (convenience form of ``plan``); result in ``self.grads``."""
+        for op in self.plan(weights, X, Y, masks):
+            op()
+
+
+class Evaluator:
+    """Evaluation-mode forward pass (no dropout) of K stacked networks on fixed inputs, preallocated.
+
+    Args:
+        config: the networks' shape.
+        n_models: K.
+        X: the inputs, shape (n, n_inputs); evaluated by every network.
+    """
+
+    def __init__(self, config: MLPConfig, n_models: int, X: np.ndarray) -> None:
+        dt = np.dtype(config.dtype)
+        n = X.shape[0]
+        self.config = config
+        self._x = np.ones((n, config.n_inputs + 1), dt)
+        self._x[:, :-1] = X
+        self._a = [np.ones((n_models, n, h + 1), dt) for h in config.hidden]  # last column stays 1
+        self.out = np.empty((n_models, n, config.n_outputs), dt)
+
+    def plan(self, weights: list[np.ndarray]) -> list:
+        """Calls that write the raw outputs (K, n, n_outputs) of ``weights`` into ``self.out``."""
+        ops, inp = [], self._x
+        for i, h in enumerate(self.config.hidden):
+            av = self._a[i][..., :h]
+            ops.append(partial(np.matmul, inp, weights[i], av))
+            if self.config.activation == "relu":
+                ops.append(partial(np.maximum, av, 0, out=av))
+            elif self.config.activation == "tanh":
+                ops.append(partial(np.tanh, av, av))
+            else:
+                ops += [partial(np.negative, av, av), partial(np.exp, av, av), partial(np.add, av, 1, av),
+                        partial(np.reciprocal, av, av)]
+            inp = self._a[i]
+        ops.append(partial(np.matmul, inp, weights[-1], self.out))
+        return ops
+
+
+def _activation_ops(act: str, z: np.ndarray, av: np.ndarray, t: np.ndarray, mask) -> list:
+    """Calls writing act(z) (times the dropout mask) into ``av`` and d act / dz (times the mask) into ``t``."""
+    if act == "relu":  # relu(z) = z * [z > 0]; derivative [z > 0]
+        ops = [partial(np.greater, z, 0, t)]
+        if mask is not None:
+            ops.append(partial(np.multiply, t, mask, t))
+        return ops + [partial(np.multiply, z, t, av)]
+    h = z if mask is not None else av  # the activation before dropout
+    if act == "tanh":  # derivative 1 - tanh^2
+        ops = [partial(np.tanh, z, h), partial(np.multiply, h, h, t), partial(np.subtract, 1, t, t)]
+    else:  # sigmoid = 1 / (1 + exp(-z)); derivative s (1 - s); exp overflow gives 1 / inf = 0
+        ops = [partial(np.negative, z, h), partial(np.exp, h, h), partial(np.add, h, 1, h),
+               partial(np.reciprocal, h, h), partial(np.subtract, 1, h, t), partial(np.multiply, t, h, t)]
+    if mask is not None:
+        ops += [partial(np.multiply, h, mask, av), partial(np.multiply, t, mask, t)]
+    return ops
 
 
 def loss_and_grad(config: MLPConfig, params: np.ndarray, X: np.ndarray, y: np.ndarray, *,

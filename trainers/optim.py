@@ -23,6 +23,7 @@ Adam (Kingma and Ba, 2015, Algorithm 1), step t starting at 1::
 from __future__ import annotations
 
 import math
+from functools import partial
 
 import numpy as np
 
@@ -32,12 +33,13 @@ OPTIMIZERS = ("adam", "sgd")
 
 
 class _Optimizer:
-    """Shared parts: state buffers, weight decay, selecting a subset of stacked networks."""
+    """Shared parts: state buffers, weight decay, precompiled update calls, selecting stacked networks."""
 
     _state_names: tuple[str, ...] = ()
 
     def __init__(self, shape: tuple[int, ...], dtype, *, learning_rate: float, weight_decay: float = 0.0,
                  decay_mask: np.ndarray | None = None) -> None:
+        self.dtype = np.dtype(dtype)
         self.learning_rate = float(learning_rate)
         self.weight_decay = float(weight_decay)
         self.steps = 0
@@ -50,10 +52,27 @@ class _Optimizer:
         for name in self._state_names:
             setattr(self, name, np.zeros(shape, dtype=dtype))
 
-    def _add_decay(self, params: np.ndarray, grads: np.ndarray) -> None:
-        if self._decay is not None:
-            np.multiply(params, self._decay, out=self._tmp)
-            grads += self._tmp
+    def _decay_ops(self, params: np.ndarray, grads: np.ndarray) -> list:
+        if self._decay is None:
+            return []
+        return [partial(np.multiply, params, self._decay, self._tmp), partial(np.add, grads, self._tmp, grads)]
+
+    def plan(self, params: np.ndarray, grads: np.ndarray) -> list:
+        """Argument-free calls that perform one update of ``params`` from ``grads`` (both fixed buffers).
+
+        The first call advances the step counter; run the list in order after each gradient.
+        Rebuild the plan after ``select``.
+        """
+        return [self.advance] + self._decay_ops(params, grads) + self._update_ops(params, grads)
+
+    def step(self, params: np.ndarray, grads: np.ndarray) -> None:
+        """Update ``params`` in place from ``grads`` (``grads`` is overwritten when weight decay is on)."""
+        for op in self.plan(params, grads):
+            op()
+
+    def advance(self) -> None:
+        """Count one step (and refresh step-dependent constants)."""
+        self.steps += 1
 
     def select(self, keep: np.ndarray) -> None:
         """Keep only the stacked networks at positions ``keep`` (rows of a (K, P) state)."""
@@ -61,7 +80,7 @@ class _Optimizer:
         for name in self._state_names:
             setattr(self, name, getattr(self, name)[keep].copy())
 
-    def step(self, params: np.ndarray, grads: np.ndarray) -> None:  # pragma: no cover - abstract
+    def _update_ops(self, params: np.ndarray, grads: np.ndarray) -> list:  # pragma: no cover - abstract
         raise NotImplementedError
 
 
@@ -85,21 +104,21 @@ class SGD(_Optimizer):
                          decay_mask=decay_mask)
         self.momentum = float(momentum)
 
-    def step(self, params: np.ndarray, grads: np.ndarray) -> None:
-        """Update ``params`` in place from ``grads`` (``grads`` is overwritten when weight decay is on)."""
-        self.steps += 1
-        self._add_decay(params, grads)
-        if self.momentum:
-            self.velocity *= self.momentum
-            self.velocity += grads
-            np.multiply(self.velocity, self.learning_rate, out=self._tmp)
-        else:
-            np.multiply(grads, self.learning_rate, out=self._tmp)
-        params -= self._tmp
+    def _update_ops(self, params, grads) -> list:
+        lr, tmp, vel = self.learning_rate, self._tmp, self.velocity
+        if not self.momentum:
+            return [partial(np.multiply, grads, lr, tmp), partial(np.subtract, params, tmp, params)]
+        return [partial(np.multiply, vel, self.momentum, vel), partial(np.add, vel, grads, vel),
+                partial(np.multiply, vel, lr, tmp), partial(np.subtract, params, tmp, params)]
 
 
 class Adam(_Optimizer):
     """Adam (Kingma and Ba, 2015, Algorithm 1) with L2 weight decay added to the gradient.
+
+    To save two multiplications per step the moments are kept as running sums,
+    ``m_sum = m / (1 - beta1)`` and ``v_sum = v / (1 - beta2)``, and the bias corrections are folded
+    into two scalars: with ``r = sqrt((1 - beta2) / (1 - beta2^t))`` the update is
+    ``p -= lr (1 - beta1) / ((1 - beta1^t) r) * m_sum / (sqrt(v_sum) + eps / r)``, which is Algorithm 1.
 
     Args:
         shape: shape of the parameter array, (P,) or (K, P).
@@ -111,39 +130,30 @@ class Adam(_Optimizer):
         decay_mask: (P,) with 1 at weights and 0 at biases; default all ones.
     """
 
-    _state_names = ("m", "v")
+    _state_names = ("m_sum", "v_sum")
 
     def __init__(self, shape, dtype, *, learning_rate: float = 1e-3, beta1: float = 0.9, beta2: float = 0.999,
                  eps: float = 1e-8, weight_decay: float = 0.0, decay_mask=None) -> None:
         super().__init__(shape, dtype, learning_rate=learning_rate, weight_decay=weight_decay,
                          decay_mask=decay_mask)
         self.beta1, self.beta2, self.eps = float(beta1), float(beta2), float(eps)
-        self._tmp2 = np.zeros(shape, dtype=dtype)
+        self._step_size = np.zeros((), dtype=dtype)  # 0-d, refreshed by advance()
+        self._eps_t = np.zeros((), dtype=dtype)
 
-    def select(self, keep: np.ndarray) -> None:
-        super().select(keep)
-        self._tmp2 = self._tmp2[keep].copy()
-
-    def step(self, params: np.ndarray, grads: np.ndarray) -> None:
-        """Update ``params`` in place from ``grads`` (``grads`` is overwritten)."""
+    def advance(self) -> None:
         self.steps += 1
-        t = self.steps
-        b1, b2 = self.beta1, self.beta2
-        self._add_decay(params, grads)
-        m, v, tmp, tmp2 = self.m, self.v, self._tmp, self._tmp2
-        m *= b1
-        np.multiply(grads, 1.0 - b1, out=tmp)
-        m += tmp
-        v *= b2
-        np.multiply(grads, grads, out=tmp)
-        tmp *= 1.0 - b2
-        v += tmp
-        np.sqrt(v, out=tmp)
-        tmp *= 1.0 / math.sqrt(1.0 - b2 ** t)
-        tmp += self.eps
-        np.multiply(m, self.learning_rate / (1.0 - b1 ** t), out=tmp2)
-        tmp2 /= tmp
-        params -= tmp2
+        t, b1, b2 = self.steps, self.beta1, self.beta2
+        r = math.sqrt((1.0 - b2) / (1.0 - b2 ** t))
+        self._step_size[()] = self.learning_rate * (1.0 - b1) / ((1.0 - b1 ** t) * r)
+        self._eps_t[()] = self.eps / r
+
+    def _update_ops(self, params, grads) -> list:
+        m, v, tmp = self.m_sum, self.v_sum, self._tmp
+        return [partial(np.multiply, m, self.beta1, m), partial(np.add, m, grads, m),
+                partial(np.multiply, v, self.beta2, v), partial(np.multiply, grads, grads, tmp),
+                partial(np.add, v, tmp, v), partial(np.sqrt, v, tmp), partial(np.add, tmp, self._eps_t, tmp),
+                partial(np.divide, m, tmp, tmp), partial(np.multiply, tmp, self._step_size, tmp),
+                partial(np.subtract, params, tmp, params)]
 
 
 def make_optimizer(train_config, shape: tuple[int, ...], dtype, decay_mask: np.ndarray | None = None) -> _Optimizer:

@@ -88,7 +88,7 @@ def test_adam_float32_stays_float32():
     p = np.ones(4, dtype=np.float32)
     opt = Adam(p.shape, p.dtype, learning_rate=0.1)
     opt.step(p, np.ones(4, dtype=np.float32))
-    assert p.dtype == np.float32 and opt.m.dtype == np.float32
+    assert p.dtype == np.float32 and opt.m_sum.dtype == np.float32
     # first Adam step moves each coordinate by about learning_rate (Kingma and Ba 2015, section 2.1)
     np.testing.assert_allclose(p, 0.9, rtol=1e-6)
 

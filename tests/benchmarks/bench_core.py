@@ -1,0 +1,201 @@
+"""Seconds per epoch of our numpy core against scikit-learn's MLPRegressor and (if importable) PyTorch on CPU.
+
+Run: ``python tests/benchmarks/bench_core.py [--reps 7] [--warmup 2]``. This is a script, not a test.
+
+Same data and shapes for everyone: 4,000 training rows, 20 inputs, 3 outputs, hidden [64] and [64, 64],
+relu, Adam (lr 1e-3), batch sizes 16, 64 and 256, float64 and float32, one BLAS thread.
+
+* ours: one epoch of ``train_mlp`` (shuffle, mini-batch steps, then the evaluation-mode training and
+  validation losses on 4,000 + 1,000 rows, which the others do not compute);
+* scikit-learn: one ``MLPRegressor.partial_fit`` over the 4,000 rows (one epoch, shuffled);
+* PyTorch: one epoch of the usual loop (randperm, zero_grad, forward, MSELoss, backward, Adam step);
+* stacked: one epoch of K=8 networks trained together (``fit_mlp_stacked``'s engine) against 8 single
+  runs, at batch 16.
+
+Configurations and contenders are interleaved round by round; the first ``--warmup`` rounds are
+dropped and the median of the remaining rounds is reported. The table is followed by one JSON line
+with the ratios (reference seconds / our seconds; above 1 means we are faster) and the targets.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import statistics
+import time
+import warnings
+
+import numpy as np
+import sklearn
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.neural_network import MLPRegressor
+
+from trainers.fit import TrainConfig, _Stack, train_mlp
+from trainers.mlp import MLPConfig
+
+try:
+    import torch
+except ImportError:  # PyTorch is not a dependency; its column is left out
+    torch = None
+
+from threadpoolctl import threadpool_info, threadpool_limits  # noqa: E402  (after the BLAS libraries load)
+
+N_TRAIN, N_VALID, N_IN, N_OUT, K_STACK = 4000, 1000, 20, 3, 8
+HIDDEN = ((64,), (64, 64))
+BATCHES = (16, 64, 256)
+DTYPES = ("float64", "float32")
+
+
+def make_data(seed: int = 0):
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((N_TRAIN + N_VALID, N_IN))
+    W = rng.standard_normal((N_IN, N_OUT)) / np.sqrt(N_IN)
+    Y = np.tanh(X @ W) + 0.1 * rng.standard_normal((N_TRAIN + N_VALID, N_OUT))
+    return X[:N_TRAIN], Y[:N_TRAIN], X[N_TRAIN:], Y[N_TRAIN:]
+
+
+class Ours:
+    def __init__(self, hidden, batch, dtype, data):
+        X, Y, Xv, Yv = data
+        cfg = MLPConfig(N_IN, N_OUT, hidden, dtype=dtype)
+        tc = TrainConfig(batch_size=batch, max_epochs=10**6, patience=10**6, learning_rate=1e-3)
+        self.run = iter(train_mlp(cfg, tc, X, Y, Xv, Yv, rng=np.random.default_rng(0)))
+
+    def epoch(self):
+        next(self.run)
+
+
+class Stacked:
+    def __init__(self, hidden, batch, dtype, data):
+        X, Y, Xv, Yv = data
+        cfg = MLPConfig(N_IN, N_OUT, hidden, dtype=dtype)
+        tc = TrainConfig(batch_size=batch, max_epochs=10**6, patience=10**6, learning_rate=1e-3)
+        self.stack = _Stack(cfg, tc, X, Y, Xv, Yv, [np.random.default_rng(s) for s in range(K_STACK)], None)
+
+    def epoch(self):
+        self.stack.run_epoch()
+
+
+class Sklearn:
+    def __init__(self, hidden, batch, dtype, data):
+        X, Y, _, _ = data
+        self.X, self.Y = X.astype(dtype), Y.astype(dtype)
+        self.model = MLPRegressor(hidden_layer_sizes=hidden, solver="adam", learning_rate_init=1e-3,
+                                  batch_size=batch, shuffle=True, random_state=0)
+
+    def epoch(self):
+        self.model.partial_fit(self.X, self.Y)
+
+
+class Torch:
+    def __init__(self, hidden, batch, dtype, data):
+        X, Y, _, _ = data
+        tdt = torch.float64 if dtype == "float64" else torch.float32
+        torch.manual_seed(0)
+        layers, width = [], N_IN
+        for h in hidden:
+            layers += [torch.nn.Linear(width, h), torch.nn.ReLU()]
+            width = h
+        layers.append(torch.nn.Linear(width, N_OUT))
+        self.model = torch.nn.Sequential(*layers).to(tdt)
+        self.opt = torch.optim.Adam(self.model.parameters(), lr=1e-3)
+        self.loss = torch.nn.MSELoss()
+        self.X, self.Y = torch.tensor(X, dtype=tdt), torch.tensor(Y, dtype=tdt)
+        self.batch = batch
+
+    def epoch(self):
+        perm = torch.randperm(N_TRAIN)
+        for s in range(0, N_TRAIN, self.batch):
+            idx = perm[s:s + self.batch]
+            self.opt.zero_grad()
+            loss = self.loss(self.model(self.X[idx]), self.Y[idx])
+            loss.backward()
+            self.opt.step()
+
+
+def timed(fn) -> float:
+    t0 = time.perf_counter()
+    fn()
+    return time.perf_counter() - t0
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--reps", type=int, default=7, help="measured rounds (median reported), >= 5")
+    parser.add_argument("--warmup", type=int, default=2, help="rounds dropped first")
+    args = parser.parse_args()
+    limiter = threadpool_limits(limits=1)  # noqa: F841  (kept alive for the whole run)
+    if torch is not None:
+        torch.set_num_threads(1)
+    warnings.filterwarnings("ignore", category=ConvergenceWarning)
+    data = make_data()
+
+    contenders = {"ours": Ours, "sklearn": Sklearn}
+    if torch is not None:
+        contenders["torch"] = Torch
+    cases = {}
+    for hidden in HIDDEN:
+        for batch in BATCHES:
+            for dtype in DTYPES:
+                cases[(hidden, batch, dtype)] = {name: cls(hidden, batch, dtype, data) for name, cls in contenders.items()}
+    for hidden in HIDDEN:
+        cases[(hidden, 16, "float64", "stack")] = {"single": Ours(hidden, 16, "float64", data),
+                                                    "stacked": Stacked(hidden, 16, "float64", data)}
+    times = {key: {name: [] for name in objs} for key, objs in cases.items()}
+    for rnd in range(args.warmup + args.reps):
+        for key, objs in cases.items():
+            for name, obj in objs.items():
+                t = timed(obj.epoch)
+                if rnd >= args.warmup:
+                    times[key][name].append(t)
+    med = {key: {name: statistics.median(v) for name, v in d.items()} for key, d in times.items()}
+
+    print(f"numpy {np.__version__}, scikit-learn {sklearn.__version__}, torch "
+          f"{torch.__version__ if torch is not None else 'not installed'}, python {platform.python_version()}; "
+          f"BLAS threads: {[i['num_threads'] for i in threadpool_info()]}; median of {args.reps} rounds")
+    head = f"{'hidden':<9}{'batch':>6} {'dtype':<8}{'ours ms':>9}{'sklearn ms':>11}{'torch ms':>10}" \
+           f"{'sk/ours':>9}{'torch/ours':>11}"
+    print(head)
+    print("-" * len(head))
+    sk_ratio, torch_ratio = {}, {}
+    for key, m in med.items():
+        if len(key) == 4:
+            continue
+        hidden, batch, dtype = key
+        label = f"h{'x'.join(map(str, hidden))}_b{batch}_{dtype}"
+        sk_ratio[label] = m["sklearn"] / m["ours"]
+        line = (f"{str(list(hidden)):<9}{batch:>6} {dtype:<8}{1e3 * m['ours']:>9.2f}{1e3 * m['sklearn']:>11.2f}")
+        if "torch" in m:
+            torch_ratio[label] = m["torch"] / m["ours"]
+            line += f"{1e3 * m['torch']:>10.2f}{sk_ratio[label]:>9.2f}{torch_ratio[label]:>11.2f}"
+        else:
+            line += f"{'-':>10}{sk_ratio[label]:>9.2f}{'-':>11}"
+        print(line)
+    stack_ratio = {}
+    print(f"\nstacked K={K_STACK} at batch 16, float64: throughput against {K_STACK} sequential runs")
+    for key, m in med.items():
+        if len(key) == 4:
+            label = f"h{'x'.join(map(str, key[0]))}"
+            stack_ratio[label] = K_STACK * m["single"] / m["stacked"]
+            print(f"  hidden {list(key[0])}: single epoch {1e3 * m['single']:.2f} ms, stacked epoch "
+                  f"{1e3 * m['stacked']:.2f} ms, {stack_ratio[label]:.2f}x the throughput")
+
+    def small(label):
+        return int(label.split("_b")[1].split("_")[0]) <= 64
+
+    targets = {
+        "sklearn_3x_at_batch_le_64": all(r >= 3 for k, r in sk_ratio.items() if small(k)),
+        "sklearn_2x_at_batch_256": all(r >= 2 for k, r in sk_ratio.items() if not small(k)),
+        "torch_5x_at_batch_le_64": (all(r >= 5 for k, r in torch_ratio.items() if small(k))
+                                    if torch_ratio else None),
+        "stacked_2x_at_batch_16": all(r >= 2 for r in stack_ratio.values()),
+    }
+    print(json.dumps({"sklearn_over_ours": {k: round(v, 3) for k, v in sk_ratio.items()},
+                      "torch_over_ours": {k: round(v, 3) for k, v in torch_ratio.items()} or None,
+                      "stacked_throughput_ratio": {k: round(v, 3) for k, v in stack_ratio.items()},
+                      "targets_met": targets, "reps": args.reps}))
+
+
+if __name__ == "__main__":
+    main()
