@@ -10,6 +10,7 @@ from __future__ import annotations
 import multiprocessing as mp
 import queue
 import signal
+import threading
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -22,6 +23,7 @@ from sweep.errors import VolsweepError
 from sweep.inputs import StudyInputs, compute_baselines, prepare_inputs
 from sweep.objective import TrialOutcome, run_trial, trial_seed
 from sweep.provenance import collect_provenance
+from sweep.pruning import PruningView
 from sweep.records import BaselineRecord, DatasetRecord, StudyRecord, TrialRecord
 from sweep.space import grid_values
 from sweep.spec import StudySpec, diff_specs, parse_spec
@@ -294,29 +296,30 @@ def _worker_loop(plan: _WorkerPlan, claim: Callable[[], bool], stop, report) -> 
         study_name=plan.study_name,
         storage=open_storage(plan.storage_url),
         sampler=make_sampler(spec, plan.worker),
-        pruner=make_pruner(spec),
     )
+    view = PruningView(make_pruner(spec))
     while not stop.is_set() and claim():
-        outcome = run_trial(study, spec, inputs, tracker, stop=stop)
+        outcome = run_trial(study, spec, inputs, tracker, view, stop=stop)
         report(outcome)
         if outcome.state == "interrupted":
             raise KeyboardInterrupt
+
+
+def _claim_slot(slots) -> bool:
+    """Take one trial from the shared budget; False when none is left."""
+    with slots.get_lock():
+        if slots.value <= 0:
+            return False
+        slots.value -= 1
+        return True
 
 
 def _worker_main(plan: _WorkerPlan, slots, stop, events) -> None:
     """Entry point of one worker process."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides when to stop
     _limits = _limit_threads()  # noqa: F841  (kept alive for the life of the process)
-
-    def claim() -> bool:
-        with slots.get_lock():
-            if slots.value <= 0:
-                return False
-            slots.value -= 1
-            return True
-
     try:
-        _worker_loop(plan, claim, stop, events.put)
+        _worker_loop(plan, lambda: _claim_slot(slots), stop, events.put)
     except KeyboardInterrupt:
         return
     except Exception as exc:  # a crash outside a trial: tell the main process, then end
@@ -428,28 +431,50 @@ def _run_inline(plan: _WorkerPlan, remaining: int, study: optuna.Study, on_event
 
 
 def _run_processes(plan, remaining, n_workers, study, on_event) -> None:
+    """Run trials in `n_workers` processes: this one and `n_workers - 1` spawned workers.
+
+    The main process trains too, so the workers' start-up (imports, rebuilding the arrays) overlaps
+    with useful work; a listener thread passes the workers' outcomes to `on_event` meanwhile.
+    """
     ctx = mp.get_context("spawn")
     slots = ctx.Value("i", remaining)
     stop = ctx.Event()
     events = ctx.Queue()
     procs = []
-    for w in range(min(n_workers, remaining)):
+    for w in range(1, min(n_workers, remaining)):
         p = ctx.Process(
             target=_worker_main,
             args=(_WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, plan.spec_text, w),
                   slots, stop, events),
             name=f"volsweep-worker-{w}",
+            daemon=True,
         )
         p.start()
         procs.append(p)
-    try:
-        while any(p.is_alive() for p in procs) or not events.empty():
+    lock = threading.Lock()
+    listening = threading.Event()
+    listening.set()
+
+    def deliver(event) -> None:
+        if on_event:
+            with lock:
+                on_event(event, _counts(study))
+
+    def listen() -> None:
+        while listening.is_set() or not events.empty():
             try:
-                event = events.get(timeout=POLL_SECONDS)
+                deliver(events.get(timeout=POLL_SECONDS))
             except queue.Empty:
                 continue
-            if on_event:
-                on_event(event, _counts(study))
+
+    listener = threading.Thread(target=listen, name="volsweep-events", daemon=True)
+    listener.start()
+    try:
+        with _limit_threads():
+            _worker_loop(plan, lambda: _claim_slot(slots), stop, deliver)
+        while any(p.is_alive() for p in procs):
+            for p in procs:
+                p.join(timeout=POLL_SECONDS)
     except KeyboardInterrupt:
         stop.set()
         for p in procs:
@@ -460,3 +485,5 @@ def _run_processes(plan, remaining, n_workers, study, on_event) -> None:
             p.join(timeout=5)
             if p.is_alive():
                 p.terminate()
+        listening.clear()
+        listener.join(timeout=5)

@@ -122,7 +122,7 @@ def _trial_record(spec, trial_number, params, seed, state, result, started, t0, 
     )
 
 
-def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=None) -> TrialOutcome:
+def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, stop=None) -> TrialOutcome:
     """Ask the study for one trial, train it, record it, and tell the study how it ended.
 
     The record is written before optuna is told, so a trial optuna calls finished is always in the
@@ -133,12 +133,14 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=N
         spec: the `StudySpec`.
         inputs: the study's arrays.
         tracker: an open `Tracker` of the record.
+        view: the worker's `PruningView`; the pruner decides on it after every epoch.
         stop: optional object with `is_set()`; when set, the trial is left at the next epoch,
             recorded as failed with the error "interrupted", and its settings queued again.
 
     Returns:
         A TrialOutcome for the progress display.
     """
+    view.refresh(tracker, spec.study.name)
     trial = study.ask()
     started, t0 = _now(), time.perf_counter()
     seed = trial_seed(spec.study.seed, trial.number)
@@ -148,10 +150,10 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=N
         params = suggest_params(trial, spec.space)
         run = train_params(spec, inputs, params, seed)
         state = "complete"
+        view.start()
         for epoch in run:
             if epoch.valid_score is not None and np.isfinite(epoch.valid_score):
-                trial.report(float(epoch.valid_score), int(epoch.index))
-                if trial.should_prune():
+                if view.should_prune(epoch.index, epoch.valid_score):
                     state = "pruned"
                     break
             if stop is not None and stop.is_set():
@@ -166,6 +168,7 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=N
                 f"{result.stop_reason}); lower space.learning_rate or narrow its range"
             )
     except KeyboardInterrupt:
+        view.discard()
         record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0,
                                error="interrupted: the run was stopped before this trial finished")
         tracker.record_trial(record)
@@ -175,6 +178,7 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=N
             study.enqueue_trial(params, skip_if_exists=False)
         return TrialOutcome(trial.number, "interrupted", None, record.seconds, record.error)
     except Exception:
+        view.discard()
         error = traceback.format_exc(limit=8)
         record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0, error=error)
         tracker.record_trial(record)
@@ -182,12 +186,16 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, *, stop=N
         study.tell(trial, state=optuna.trial.TrialState.FAIL)
         return TrialOutcome(trial.number, "failed", None, record.seconds, error.strip().splitlines()[-1])
 
+    view.discard()
     record = _trial_record(spec, trial.number, params, seed, state, result, started, t0)
     forecasts = valid_forecasts(inputs, result) if result.best_epoch > 0 else None
     weights = result.network.to_arrays() if state == "complete" else None
     record = record.__class__(**{**record.__dict__, "valid_forecasts": forecasts, "weights": weights})
     tracker.record_trial(record)
     if state == "pruned":
+        # one intermediate value, so optuna's value of a pruned trial is the recorded objective
+        if record.objective is not None:
+            trial.report(record.objective, record.n_epochs)
         study.tell(trial, state=optuna.trial.TrialState.PRUNED)
     else:
         study.tell(trial, record.objective)

@@ -21,7 +21,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 __all__ = [
     "LOSSES", "DMResult", "MCSResult", "SPAResult", "accuracy", "cross_entropy", "deviance",
@@ -271,6 +270,8 @@ def diebold_mariano(loss_a, loss_b, *, horizon: int = 1, alternative: str = "two
         ValueError: mismatched or too short inputs, non-finite values, a bad horizon, or a
             long-run variance <= 0 (identical losses, or negative autocovariances at h > 1).
     """
+    from scipy import stats  # imported here: workers that never test forecasts start faster
+
     a, b = _pair(loss_a, loss_b)
     if a.ndim != 1:
         raise ValueError(f"loss_a and loss_b must be 1-D per-row losses, got shape {a.shape}; use loss_series")

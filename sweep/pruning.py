@@ -1,0 +1,114 @@
+"""Pruning decisions after every epoch, without a storage round trip per epoch.
+
+A trial reports its validation score after every epoch. Writing each report to a durable optuna storage
+costs a locked, synced write (about a millisecond or more on a journal file, several on SQLite), which
+on small networks is a large share of the training itself. So each worker keeps a `PruningView`: an
+in-memory optuna study that holds the recorded learning curves of finished trials (read from the
+record, which keeps every epoch anyway) and the running trial's own reports. The study's pruner
+decides on that view exactly as it would on the durable storage; trials finished by other workers
+join the view when the next trial starts.
+
+The durable optuna study keeps what the sampler needs (settings, final values, states) and, for a
+pruned trial, its objective as the one intermediate value at the epoch it was stopped.
+"""
+
+from __future__ import annotations
+
+import optuna
+from optuna.trial import TrialState
+
+__all__ = ["PruningView"]
+
+_STATES = {"complete": TrialState.COMPLETE, "pruned": TrialState.PRUNED}
+
+
+class PruningView:
+    """An in-memory mirror of a study's learning curves, for the pruner.
+
+    Args:
+        pruner: an optuna pruner (the study's, from the spec).
+        direction: "minimize" (volsweep's objectives are losses).
+
+    Example:
+        >>> view = PruningView(optuna.pruners.MedianPruner(n_startup_trials=0))
+        >>> view.start()
+        >>> view.should_prune(1, 0.5)
+        False
+    """
+
+    def __init__(self, pruner, direction: str = "minimize"):
+        self._study = optuna.create_study(
+            direction=direction, pruner=pruner, sampler=optuna.samplers.RandomSampler(seed=0)
+        )
+        self._seen: set[int] = set()
+        self._trial = None
+        self._replay_rungs = isinstance(
+            pruner, (optuna.pruners.SuccessiveHalvingPruner, optuna.pruners.HyperbandPruner)
+        )
+
+    @property
+    def n_trials(self) -> int:
+        """Finished trials in the view."""
+        return len(self._seen)
+
+    def add_finished(self, number: int, state: str, value: float | None, curve) -> None:
+        """Add one finished trial (complete or pruned) with its curve [(epoch, score), ...].
+
+        The curve is replayed through the view so that rung-based pruners (halving, hyperband) keep
+        the marks they would have left had the trial run in this process.
+        """
+        if number in self._seen or state not in _STATES or (state == "complete" and value is None):
+            return
+        if self._trial is not None:
+            raise RuntimeError("add finished trials before start() or after discard()")
+        trial = self._study.ask()
+        for epoch, score in curve:
+            if score is None:
+                continue
+            trial.report(float(score), int(epoch))
+            if self._replay_rungs:
+                trial.should_prune()
+        if state == "complete":
+            self._study.tell(trial, float(value))
+        else:
+            self._study.tell(trial, state=TrialState.PRUNED)
+        self._seen.add(number)
+
+    def refresh(self, tracker, study: str) -> int:
+        """Add the recorded trials this view has not seen yet; returns how many were added."""
+        finished = [t for t in tracker.load_trials(study, states=tuple(_STATES)) if t.number not in self._seen]
+        if not finished:
+            return 0
+        curves = tracker.load_curves(study, [t.number for t in finished])
+        for t in finished:
+            self.add_finished(t.number, t.state, t.objective, curves.get(t.number, ()))
+        return len(finished)
+
+    def start(self) -> None:
+        """Begin the running trial's curve."""
+        if self._trial is not None:
+            self.discard()
+        self._trial = self._study.ask()
+        # Pruners that only read curves get the running trial as a frozen trial whose curve grows in
+        # place: no storage copy per epoch. Rung pruners write marks on the trial, so they go
+        # through optuna's trial object.
+        self._curve = {}
+        self._frozen = optuna.trial.FrozenTrial(
+            number=self._trial.number, state=TrialState.RUNNING, value=None, datetime_start=None,
+            datetime_complete=None, params={}, distributions={}, user_attrs={}, system_attrs={},
+            intermediate_values=self._curve, trial_id=self._trial._trial_id,
+        )
+
+    def should_prune(self, epoch: int, score: float) -> bool:
+        """Report one epoch's score of the running trial and ask the pruner."""
+        if self._replay_rungs:
+            self._trial.report(float(score), int(epoch))
+            return self._trial.should_prune()
+        self._curve[int(epoch)] = float(score)
+        return bool(self._study.pruner.prune(self._study, self._frozen))
+
+    def discard(self) -> None:
+        """End the running trial's curve without keeping it (its record will bring it back in)."""
+        if self._trial is not None:
+            self._study.tell(self._trial, state=TrialState.FAIL)
+            self._trial = None
