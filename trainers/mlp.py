@@ -382,36 +382,43 @@ class Workspace:
 class Evaluator:
     """Evaluation-mode forward pass (no dropout) of K stacked networks on fixed inputs, preallocated.
 
+    Rows are processed in chunks of ``chunk_rows`` so the hidden activations of a chunk stay in cache.
+
     Args:
         config: the networks' shape.
         n_models: K.
         X: the inputs, shape (n, n_inputs); evaluated by every network.
+        chunk_rows: rows per chunk.
     """
 
-    def __init__(self, config: MLPConfig, n_models: int, X: np.ndarray) -> None:
+    def __init__(self, config: MLPConfig, n_models: int, X: np.ndarray, chunk_rows: int = 512) -> None:
         dt = np.dtype(config.dtype)
         n = X.shape[0]
         self.config = config
+        self.chunk_rows = c = max(1, min(chunk_rows, n))
         self._x = np.ones((n, config.n_inputs + 1), dt)
         self._x[:, :-1] = X
-        self._a = [np.ones((n_models, n, h + 1), dt) for h in config.hidden]  # last column stays 1
+        self._a = [np.ones((n_models, c, h + 1), dt) for h in config.hidden]  # last column stays 1
         self.out = np.empty((n_models, n, config.n_outputs), dt)
 
     def plan(self, weights: list[np.ndarray]) -> list:
         """Calls that write the raw outputs (K, n, n_outputs) of ``weights`` into ``self.out``."""
-        ops, inp = [], self._x
-        for i, h in enumerate(self.config.hidden):
-            av = self._a[i][..., :h]
-            ops.append(partial(np.matmul, inp, weights[i], av))
-            if self.config.activation == "relu":
-                ops.append(partial(np.maximum, av, 0, out=av))
-            elif self.config.activation == "tanh":
-                ops.append(partial(np.tanh, av, av))
-            else:
-                ops += [partial(np.negative, av, av), partial(np.exp, av, av), partial(np.add, av, 1, av),
-                        partial(np.reciprocal, av, av)]
-            inp = self._a[i]
-        ops.append(partial(np.matmul, inp, weights[-1], self.out))
+        ops, n, c = [], self._x.shape[0], self.chunk_rows
+        for s in range(0, n, c):
+            e = min(s + c, n)
+            inp = self._x[s:e]
+            for i, h in enumerate(self.config.hidden):
+                av = self._a[i][:, :e - s, :h]
+                ops.append(partial(np.matmul, inp, weights[i], av))
+                if self.config.activation == "relu":
+                    ops.append(partial(np.maximum, av, 0, out=av))
+                elif self.config.activation == "tanh":
+                    ops.append(partial(np.tanh, av, av))
+                else:
+                    ops += [partial(np.negative, av, av), partial(np.exp, av, av), partial(np.add, av, 1, av),
+                            partial(np.reciprocal, av, av)]
+                inp = self._a[i][:, :e - s]
+            ops.append(partial(np.matmul, inp, weights[-1], self.out[:, s:e]))
         return ops
 
 
