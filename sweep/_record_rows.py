@@ -21,6 +21,7 @@ import numpy as np
 
 from sweep.records import (
     BaselineRecord,
+    ComparisonRecord,
     ConfirmRecord,
     DatasetRecord,
     EpochRow,
@@ -38,6 +39,7 @@ JSON_FIELDS = {
     BaselineRecord: ("losses", "params"),
     HoldoutRecord: ("results",),
     ConfirmRecord: ("seeds", "objectives", "gaps", "summary", "extra"),
+    ComparisonRecord: ("results",),
     NoteRecord: (),
 }
 # fields kept in other tables or columns than the record's own row

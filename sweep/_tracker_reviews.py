@@ -1,6 +1,9 @@
-"""Baselines, holdout results, confirmations and decision notes: the review half of the tracker.
+"""Baselines, holdout results, confirmations, comparisons and decision notes: the review half of the tracker.
 
 Private to ``sweep/tracker.py``; ``Tracker`` inherits these methods.
+
+``vs_comparisons`` came after the first schema: it is made on the first ``record_comparison`` (so
+files written before it still open), and ``load_comparisons`` reads a file without it as empty.
 """
 
 from __future__ import annotations
@@ -9,9 +12,25 @@ import dataclasses
 
 from sweep import _record_rows as rows
 from sweep._tracker_base import RecordError, TrackerBase
-from sweep.records import BASELINE_WINDOWS, BaselineRecord, ConfirmRecord, HoldoutRecord, NoteRecord
+from sweep.records import (
+    BASELINE_WINDOWS,
+    COMPARISON_WINDOWS,
+    BaselineRecord,
+    ComparisonRecord,
+    ConfirmRecord,
+    HoldoutRecord,
+    NoteRecord,
+)
 
-__all__ = ["ReviewsMixin"]
+__all__ = ["COMPARISONS_TABLE", "ReviewsMixin"]
+
+COMPARISONS_TABLE = "vs_comparisons"
+_COMPARISONS_SCHEMA = f"""
+CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
+    study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE, sequence INTEGER NOT NULL,
+    created TEXT NOT NULL, "window" TEXT NOT NULL, command TEXT NOT NULL, results TEXT NOT NULL,
+    PRIMARY KEY (study, sequence))
+"""
 
 
 class ReviewsMixin(TrackerBase):
@@ -72,6 +91,41 @@ class ReviewsMixin(TrackerBase):
     def load_confirmations(self, study: str, trial: int | None = None) -> list[ConfirmRecord]:
         """The study's confirmations, oldest first (optionally one trial's)."""
         return [rows.from_row(ConfirmRecord, r) for r in self._review_rows("vs_confirmations", study, trial, "id")]
+
+    def record_comparison(self, record: ComparisonRecord) -> ComparisonRecord:
+        """Add a comparison result (never overwritten); returns it with its ``sequence`` filled in.
+
+        Raises:
+            StudyNotFound: the study is not in the record.
+            RecordError: a comparison with that sequence number is already recorded.
+        """
+        with self._transaction():
+            self._require_study(record.study)
+            self.db.execute(_COMPARISONS_SCHEMA)
+            last = self._one(f"SELECT MAX(sequence) AS n FROM {COMPARISONS_TABLE} WHERE study = ?",
+                             [record.study])["n"] or 0
+            sequence = last + 1 if record.sequence is None else record.sequence
+            if self._one(f"SELECT 1 AS x FROM {COMPARISONS_TABLE} WHERE study = ? AND sequence = ?",
+                         [record.study, sequence]):
+                raise RecordError(
+                    f"comparison #{sequence} of study {record.study!r} is already recorded and is never "
+                    "overwritten; leave sequence=None to add the next one"
+                )
+            stored = dataclasses.replace(record, sequence=sequence)
+            self.db[COMPARISONS_TABLE].insert(rows.to_row(stored))
+        return stored
+
+    def load_comparisons(self, study: str, window: str | None = None) -> list[ComparisonRecord]:
+        """The study's comparison results in sequence order; ``window`` "valid" or "test" keeps one window."""
+        self._require_study(study)
+        if window is not None and window not in COMPARISON_WINDOWS:
+            raise ValueError(f"window must be one of {', '.join(COMPARISON_WINDOWS)} or None; got {window!r}")
+        if COMPARISONS_TABLE not in self.db.table_names():
+            return []
+        sql, params = f"SELECT * FROM {COMPARISONS_TABLE} WHERE study = ?", [study]
+        if window is not None:
+            sql, params = sql + ' AND "window" = ?', params + [window]
+        return [rows.from_row(ComparisonRecord, r) for r in self._all(sql + " ORDER BY sequence", params)]
 
     def add_note(self, note: NoteRecord) -> None:
         """Add a decision note; notes are never overwritten or removed."""

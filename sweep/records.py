@@ -26,10 +26,12 @@ import numpy as np
 
 __all__ = [
     "BASELINE_WINDOWS",
+    "COMPARISON_WINDOWS",
     "DIRECTIONS",
     "STOP_REASONS",
     "TRIAL_STATES",
     "BaselineRecord",
+    "ComparisonRecord",
     "ConfirmRecord",
     "DatasetRecord",
     "EpochRow",
@@ -46,6 +48,7 @@ TRIAL_STATES = ("complete", "pruned", "failed", "running")
 STOP_REASONS = ("patience", "max_epochs", "diverged", "stopped", "pruned", "error")
 DIRECTIONS = ("minimize", "maximize")
 BASELINE_WINDOWS = ("valid", "test")
+COMPARISON_WINDOWS = BASELINE_WINDOWS
 
 
 def utc_now() -> str:
@@ -344,3 +347,24 @@ class NoteRecord:
         if not isinstance(self.text, str) or not self.text.strip():
             raise ValueError(f"NoteRecord.text must be non-empty text; got {self.text!r}")
 
+
+
+@dataclass(frozen=True)
+class ComparisonRecord:
+    """Forecast comparison tests on one window (Diebold-Mariano, confidence set, SPA); never overwritten.
+
+    ``results`` is the JSON-able summary ``sweep.compare.compare_forecasts`` returns; ``sequence``
+    is 1 for the study's first comparison, None lets the tracker number it.
+    """
+
+    study: str
+    created: str
+    window: str
+    command: str
+    results: dict
+    sequence: int | None = None
+
+    def __post_init__(self):
+        _check_choice("ComparisonRecord", "window", self.window, COMPARISON_WINDOWS)
+        _as_int(self, "sequence", minimum=1, optional=True)
+        _as_plain(self, "results")
