@@ -235,6 +235,8 @@ def _recover_orphans(study: optuna.Study, tracker: Tracker, spec: StudySpec, rea
     """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again."""
     numbers = []
     for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        # marked like an interrupted trial: it does not use up the budget, its retry does
+        study._storage.set_trial_user_attr(t._trial_id, "interrupted", True)
         study.tell(t.number, state=TrialState.FAIL)
         numbers.append(t.number)
         tracker.record_trial(

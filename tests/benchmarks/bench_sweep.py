@@ -30,6 +30,7 @@ from sweep.objective import run_trial, trial_seed
 from sweep.pruning import PruningView
 from sweep.space import params_to_configs
 from sweep.spec import parse_spec
+from sweep.studyfile import set_keys
 from sweep.tracker import Tracker
 from trainers.fit import fit_mlp
 from trainers.scenario import write_market_csv
@@ -51,20 +52,10 @@ class _DecideButKeep(optuna.pruners.BasePruner):
 
 
 def _study_text(trials: int, epochs: int, workers: int, name: str) -> str:
-    text = demo_study_text()
-    replace = {
-        'name = "harbor-demo"': f'name = "{name}"',
-        "trials = 24": f"trials = {trials}",
-        "workers = 2": f"workers = {workers}",
-        "max_epochs = 60": f"max_epochs = {epochs}",
-        'pruner = "median"': 'pruner = "none"',
-        'sampler = "tpe"': 'sampler = "random"',
-        "patience = [8, 15]": "patience = [1000, 1001]",  # every trial runs all its epochs
-    }
-    for old, new in replace.items():
-        assert old in text, old
-        text = text.replace(old, new)
-    return text
+    # patience above max_epochs: every trial runs all its epochs
+    return set_keys(demo_study_text(), name=f'"{name}"', trials=str(trials), workers=str(workers),
+                    max_epochs=str(epochs), pruner='"none"', sampler='"random"', patience="[1000, 1001]",
+                    startup_trials="1", warmup_epochs="1", min_epochs="1")
 
 
 def _spec(folder: Path, trials: int, epochs: int, workers: int, name: str):
