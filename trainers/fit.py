@@ -294,7 +294,7 @@ class _Stack:
             shown = losses.softmax(out_valid)
         else:
             tl, vl, shown = losses.mse(out_train, self.y_train), losses.mse(out_valid, self.y_valid), out_valid
-        score = None if self.valid_score is None else float(self.valid_score(shown))
+        score = None if self.valid_score is None else float(self.valid_score(np.ascontiguousarray(shown)))
         return tl, vl, score
 
     def _update(self, j: int, k: int, rec: EpochRecord) -> str | None:

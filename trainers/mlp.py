@@ -235,7 +235,8 @@ def forward(config: MLPConfig, params: np.ndarray, X: np.ndarray) -> np.ndarray:
     with np.errstate(over="ignore", invalid="ignore"):
         for op in ev.plan(unpack_params(params if stacked else params[None], config)):
             op()
-    return ev.out if stacked else ev.out[0]
+    out = np.ascontiguousarray(ev.out)
+    return out if stacked else out[0]
 
 
 class Network:
@@ -382,7 +383,9 @@ class Workspace:
 class Evaluator:
     """Evaluation-mode forward pass (no dropout) of K stacked networks on fixed inputs, preallocated.
 
-    Rows are processed in chunks of ``chunk_rows`` so the hidden activations of a chunk stay in cache.
+    The pass runs transposed (``H^T = W^T [X, 1]^T``): every product then has the rows as its long
+    side, which suits BLAS better than the narrow output layer of the row-major form. Rows are taken
+    in chunks of ``chunk_rows`` so that a chunk's activations stay in cache.
 
     Args:
         config: the networks' shape.
@@ -396,29 +399,35 @@ class Evaluator:
         n = X.shape[0]
         self.config = config
         self.chunk_rows = c = max(1, min(chunk_rows, n))
-        self._x = np.ones((n, config.n_inputs + 1), dt)
-        self._x[:, :-1] = X
-        self._a = [np.ones((n_models, c, h + 1), dt) for h in config.hidden]  # last column stays 1
-        self.out = np.empty((n_models, n, config.n_outputs), dt)
+        self._xt = np.ones((config.n_inputs + 1, n), dt)  # last row stays 1
+        self._xt[:-1] = np.asarray(X).T
+        self._ht = [np.ones((n_models, h + 1, c), dt) for h in config.hidden]  # last row stays 1
+        self._outt = np.empty((n_models, config.n_outputs, n), dt)
+
+    @property
+    def out(self) -> np.ndarray:
+        """Raw outputs (K, n, n_outputs) (a transposed view) of the last run of the plan."""
+        return self._outt.transpose(0, 2, 1)
 
     def plan(self, weights: list[np.ndarray]) -> list:
-        """Calls that write the raw outputs (K, n, n_outputs) of ``weights`` into ``self.out``."""
-        ops, n, c = [], self._x.shape[0], self.chunk_rows
+        """Calls that compute the raw outputs of ``weights`` (see ``out``)."""
+        ops, n, c = [], self._xt.shape[1], self.chunk_rows
+        wt = [w.transpose(0, 2, 1) for w in weights]
         for s in range(0, n, c):
             e = min(s + c, n)
-            inp = self._x[s:e]
+            inp = self._xt[:, s:e]
             for i, h in enumerate(self.config.hidden):
-                av = self._a[i][:, :e - s, :h]
-                ops.append(partial(np.matmul, inp, weights[i], av))
+                hv = self._ht[i][:, :h, :e - s]
+                ops.append(partial(np.matmul, wt[i], inp, hv))
                 if self.config.activation == "relu":
-                    ops.append(partial(np.maximum, av, 0, out=av))
+                    ops.append(partial(np.maximum, hv, 0, out=hv))
                 elif self.config.activation == "tanh":
-                    ops.append(partial(np.tanh, av, av))
+                    ops.append(partial(np.tanh, hv, hv))
                 else:
-                    ops += [partial(np.negative, av, av), partial(np.exp, av, av), partial(np.add, av, 1, av),
-                            partial(np.reciprocal, av, av)]
-                inp = self._a[i][:, :e - s]
-            ops.append(partial(np.matmul, inp, weights[-1], self.out[:, s:e]))
+                    ops += [partial(np.negative, hv, hv), partial(np.exp, hv, hv), partial(np.add, hv, 1, hv),
+                            partial(np.reciprocal, hv, hv)]
+                inp = self._ht[i][:, :, :e - s]
+            ops.append(partial(np.matmul, wt[-1], inp, self._outt[:, :, s:e]))
         return ops
 
 
