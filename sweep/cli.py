@@ -286,7 +286,7 @@ def replay(db: DbArg, trial: TrialArg, study: StudyOpt = None, as_json: JsonOpt 
     out.print(report["message"], highlight=False, markup=False)
     if not report["identical"]:
         table = Table("epoch", "train loss diff", "valid loss diff", "score diff")
-        for e in report["epochs"]:
+        for e in [e for e in report["epochs"] if e["max_abs_diff"] != 0.0]:  # epochs that differ or are missing
             table.add_row(str(e["epoch"]), _fmt(e["train_loss"], 3), _fmt(e["valid_loss"], 3),
                           _fmt(e["valid_score"], 3))
         out.print(table)

@@ -34,7 +34,7 @@ from sweep.forecast import (
     window_forecasts,
 )
 from sweep.inputs import window_losses
-from sweep.provenance import package_versions
+from sweep.provenance import code_version, git_commit, package_versions
 from sweep.records import ConfirmRecord, HoldoutRecord, NoteRecord, utc_now
 from sweep.space import params_to_configs
 from sweep.spec import diff_specs, parse_spec
@@ -81,12 +81,18 @@ def _finite(value) -> float | None:
 
 
 def environment_differences(record) -> list[dict]:
-    """Package versions, Python and platform that differ between the record and this machine."""
+    """Package versions, Python, platform, volsweep version and git commit that differ from the record.
+
+    The git commit ends in ``+dirty`` when the checkout had uncommitted changes; two dirty checkouts of
+    one commit look the same here even if their changes differ.
+    """
     current = package_versions()
     rows = [{"name": name, "recorded": record.packages.get(name), "current": current.get(name)}
             for name in sorted(set(record.packages) | set(current))]
     rows += [{"name": "python", "recorded": record.python, "current": platform.python_version()},
-             {"name": "platform", "recorded": record.platform, "current": platform.platform()}]
+             {"name": "platform", "recorded": record.platform, "current": platform.platform()},
+             {"name": "volsweep", "recorded": record.code_version, "current": code_version()},
+             {"name": "git commit", "recorded": record.git_commit, "current": git_commit()}]
     return [r for r in rows if r["recorded"] != r["current"]]
 
 
@@ -132,16 +138,16 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
         old = trial.epochs[i] if i < len(trial.epochs) else None
         new = replayed[i] if i < len(replayed) else None
         if old is None or new is None:
-            epochs.append({"epoch": i + 1, "train_loss": math.inf, "valid_loss": math.inf,
-                           "valid_score": math.inf, "max_abs_diff": math.inf,
-                           "missing": "replayed" if new is None else "recorded"})
+            epochs.append({"epoch": i + 1, "train_loss": None, "valid_loss": None, "valid_score": None,
+                           "max_abs_diff": None, "missing": "replayed" if new is None else "recorded"})
             continue
         row = {"epoch": i + 1, "train_loss": _abs_diff(old.train_loss, new.train_loss),
                "valid_loss": _abs_diff(old.valid_loss, new.valid_loss),
                "valid_score": _abs_diff(old.valid_score, _finite(new.valid_score))}
         row["max_abs_diff"] = max(row["train_loss"], row["valid_loss"], row["valid_score"])
         epochs.append(row)
-    max_diff = max((e["max_abs_diff"] for e in epochs), default=0.0)
+    max_diff = max((e["max_abs_diff"] for e in epochs if e["max_abs_diff"] is not None), default=0.0)
+    same_length = len(replayed) == len(trial.epochs)
     forecasts_diff = weights_diff = None
     if trial.valid_forecasts is not None and result.best_epoch > 0:
         new_forecasts = window_forecasts(ctx.inputs, result.network, "valid")
@@ -150,7 +156,7 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
         stored = np.asarray(trial.weights["params"], dtype=np.float64)
         new_params = np.asarray(result.network.params, dtype=np.float64)
         weights_diff = float(np.max(np.abs(stored - new_params))) if stored.shape == new_params.shape else math.inf
-    identical = (max_diff == 0.0 and len(replayed) == len(trial.epochs) and forecasts_diff in (None, 0.0)
+    identical = (max_diff == 0.0 and same_length and forecasts_diff in (None, 0.0)
                  and weights_diff in (None, 0.0))
     differences = environment_differences(ctx.record)
     source = _source_status(tracker.load_dataset(ctx.record.dataset_sha256))
@@ -158,8 +164,10 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
         message = f"trial {number} replays identically: {len(replayed)} epochs, every loss equal bit for bit"
     else:
         changed = ", ".join(f"{d['name']} {d['recorded']} -> {d['current']}" for d in differences)
+        length = "" if same_length else (f"; the replay stopped after {len(replayed)} epochs, the record after "
+                                         f"{len(trial.epochs)}")
         message = (f"trial {number} replays with differences: largest absolute difference {max_diff:.3g} over "
-                   f"{len(replayed)} replayed and {len(trial.epochs)} recorded epochs; "
+                   f"the {min(len(replayed), len(trial.epochs))} epochs both have{length}; "
                    + (f"differences from the recorded environment: {changed}" if differences
                       else "the recorded package versions, Python and platform are the same as here"))
     if source["changed"]:

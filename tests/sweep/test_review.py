@@ -70,7 +70,8 @@ def test_replay_trial_reproduces_the_recorded_history_bit_for_bit(tracker):
     assert report["max_abs_diff"] == 0.0
     assert report["n_epochs_replayed"] == report["n_epochs_recorded"] == trial.n_epochs
     assert report["forecasts_max_abs_diff"] == 0.0 and report["weights_max_abs_diff"] == 0.0
-    assert report["environment"]["same"] is True
+    # (git commit is left out: other commits may land between building the study and this check)
+    assert [d for d in report["environment"]["differences"] if d["name"] != "git commit"] == []
     assert report["source_changed"] is False
     # independent of the replay code: the training loop run directly gives the recorded curve
     alone = _fit_alone(tracker, trial, trial.seed)
@@ -108,10 +109,31 @@ def test_replay_trial_names_differences_and_changed_versions(writable, tmp_path)
     assert [e["epoch"] for e in report["epochs"] if e["max_abs_diff"] > 0] == [3]
     assert {"name": "numpy", "recorded": "0.0.1", "current": np.__version__} in report["environment"]["differences"]
     assert "numpy 0.0.1 -> " in report["message"]
+    db.execute("DELETE FROM vs_epochs WHERE study = ? AND number = ? AND epoch > 5", [STUDY, trial.number])
+    db.execute("UPDATE vs_trials SET n_epochs = 5 WHERE study = ? AND number = ?", [STUDY, trial.number])
+    db.execute("UPDATE vs_epochs SET valid_loss = valid_loss + 0.25 WHERE study = ? AND number = ? AND epoch = 5",
+               [STUDY, trial.number])
+    short = review.replay_trial(writable, trial.number)
+    # a record that stops earlier: the replay stops there too (the loop ends at the recorded epoch count)
+    assert short["n_epochs_replayed"] == 5 and short["max_abs_diff"] == pytest.approx(0.25, abs=1e-12)
     # the file at the recorded source has another SHA-256 now
     assert report["source_changed"] is True
     db.execute("UPDATE vs_datasets SET source = ?", [str(tmp_path / "gone.csv")])
     assert review.replay_trial(writable, trial.number)["source_changed"] is None
+
+
+def test_replay_trial_says_when_the_epoch_counts_differ(writable):
+    trial = _trials(writable, "complete")[0]
+    assert trial.n_epochs == 8  # max_epochs: training cannot run a ninth epoch
+    writable.db.execute("INSERT INTO vs_epochs (study, number, epoch, train_loss, valid_loss, valid_score, seconds) "
+                        "VALUES (?, ?, 9, 0.5, 0.5, 0.5, 0.0)", [STUDY, trial.number])
+    writable.db.execute("UPDATE vs_trials SET n_epochs = 9 WHERE study = ? AND number = ?", [STUDY, trial.number])
+    report = review.replay_trial(writable, trial.number)
+    # the eight epochs both have agree; the ninth exists only in the record
+    assert report["identical"] is False and report["max_abs_diff"] == 0.0
+    assert report["epochs"][-1] == {"epoch": 9, "train_loss": None, "valid_loss": None, "valid_score": None,
+                                    "max_abs_diff": None, "missing": "replayed"}
+    assert "the replay stopped after 8 epochs, the record after 9" in report["message"]
 
 
 def test_replay_trial_unknown_trial_raises(tracker):
