@@ -27,8 +27,8 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
     add_completion=False,
 )
-out = Console()
-err = Console(stderr=True)
+out = Console(soft_wrap=True)
+err = Console(stderr=True, soft_wrap=True)
 
 CAUTION = (
     "Forecasts are estimates from historical data, not advice; out-of-sample results can differ. "
@@ -134,22 +134,25 @@ def demo(
 @_handles_errors
 def data(
     file: Annotated[Path, typer.Argument(help="A daily price file (CSV).", show_default=False)],
+    min_rows: Annotated[int, typer.Option(min=0, help="Fewest rows accepted (default: what the default study settings need).")] = 140,
     as_json: JsonOpt = False,
 ) -> None:
     """Check a price file and summarise its daily variance by estimator."""
     from sweep.reports import data_report
 
-    report = _clean(data_report(file))
+    report = _clean(data_report(file, min_rows=min_rows))
     if as_json:
         _print_json(report)
     else:
         out.print(f"{report['file']}: {report['rows']} rows, {report['first_date']} to {report['last_date']}")
         for p in report["problems"]:
             out.print(f"  problem: {p}", highlight=False)
-        table = Table("estimator", "mean daily variance", "median", "annualised vol", "zero days")
-        for est, s in report["estimators"].items():
-            table.add_row(est, _fmt(s["mean"]), _fmt(s["median"]), _fmt(s["annualised_vol"], 3), str(s["zero_days"]))
-        out.print(table)
+        if report["estimators"]:
+            table = Table("estimator", "mean daily variance", "median", "annualised vol", "zero days")
+            for est, s in report["estimators"].items():
+                table.add_row(est, _fmt(s["mean"]), _fmt(s["median"]), _fmt(s["annualised_vol"], 3),
+                              str(s["zero_days"]))
+            out.print(table)
     if report["problems"]:
         raise typer.Exit(code=1)
 

@@ -7,6 +7,7 @@ from the copy of the rows kept in the record, so every worker trains on exactly 
 
 from __future__ import annotations
 
+import json
 import multiprocessing as mp
 import queue
 import signal
@@ -17,6 +18,9 @@ from pathlib import Path
 from typing import Callable
 
 import optuna
+from optuna.storages import JournalStorage
+from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
+from optuna.storages.journal._file import get_lock_file
 from optuna.trial import TrialState
 
 from sweep.errors import VolsweepError
@@ -91,10 +95,22 @@ def open_storage(url: str):
         if url.startswith("sqlite"):
             kwargs["engine_kwargs"] = {"connect_args": {"timeout": 30}}
         return optuna.storages.RDBStorage(url, **kwargs)
-    from optuna.storages import JournalStorage
-    from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
+    return JournalStorage(_JournalFile(url, lock_obj=JournalFileOpenLock(url)))
 
-    return JournalStorage(JournalFileBackend(url, lock_obj=JournalFileOpenLock(url)))
+
+class _JournalFile(JournalFileBackend):
+    """optuna's journal file, appended under its lock but without an fsync per line.
+
+    A finished write is in the operating system's cache, so a killed worker loses nothing; only a
+    crash of the machine itself can lose the last lines, the same promise the record's SQLite file
+    makes (WAL with synchronous=NORMAL). The fsync was most of the engine's cost per trial.
+    """
+
+    def append_logs(self, logs) -> None:
+        text = "\n".join(json.dumps(log, separators=(",", ":")) for log in logs) + "\n"
+        with get_lock_file(self._lock):
+            with open(self._file_path, "ab") as f:
+                f.write(text.encode("utf-8"))
 
 
 def make_sampler(spec: StudySpec, worker: int = 0):

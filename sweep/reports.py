@@ -14,7 +14,7 @@ from sweep.inputs import build_study_dataset, compute_baselines, prepare_inputs
 from sweep.ranking import rank_rows
 from sweep.tracker import Tracker
 from trainers import volatility
-from trainers.data import PriceFileError, check_prices, load_prices
+from trainers.data import PriceFileError, load_prices
 
 __all__ = [
     "TRADING_DAYS",
@@ -43,20 +43,20 @@ def _estimator_stats(frame: pd.DataFrame) -> dict:
     return stats
 
 
-def data_report(path: Path, *, columns: dict | None = None) -> dict:
+def data_report(path: Path, *, columns: dict | None = None, min_rows: int = 0) -> dict:
     """Rows, date range, problems and estimator statistics of a price file.
 
     A file with problems still gets a report: the problems are listed, and the statistics are
     computed on the rows without problems, when any remain.
     """
     try:
-        data = load_prices(path, columns=columns)
+        data = load_prices(path, columns=columns, min_rows=min_rows)
         frame, problems, dropped = data.frame, [], []
         sha256 = data.sha256
     except PriceFileError as exc:
         problems = [str(p) for p in exc.problems]
         try:
-            data = load_prices(path, columns=columns, bad_rows="drop")
+            data = load_prices(path, columns=columns, bad_rows="drop", min_rows=0)
         except PriceFileError:
             return {"file": str(path), "rows": 0, "first_date": None, "last_date": None,
                     "sha256": None, "problems": problems, "estimators": {}}
