@@ -168,7 +168,7 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
                 f"{result.stop_reason}); lower space.learning_rate or narrow its range"
             )
     except KeyboardInterrupt:
-        view.discard()
+        view.finish(trial.number, "failed")
         record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0,
                                error="interrupted: the run was stopped before this trial finished")
         tracker.record_trial(record)
@@ -178,7 +178,7 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
             study.enqueue_trial(params, skip_if_exists=False)
         return TrialOutcome(trial.number, "interrupted", None, record.seconds, record.error)
     except Exception:
-        view.discard()
+        view.finish(trial.number, "failed")
         error = traceback.format_exc(limit=8)
         record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0, error=error)
         tracker.record_trial(record)
@@ -186,8 +186,8 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
         study.tell(trial, state=optuna.trial.TrialState.FAIL)
         return TrialOutcome(trial.number, "failed", None, record.seconds, error.strip().splitlines()[-1])
 
-    view.discard()
     record = _trial_record(spec, trial.number, params, seed, state, result, started, t0)
+    view.finish(trial.number, state, record.objective)
     forecasts = valid_forecasts(inputs, result) if result.best_epoch > 0 else None
     weights = result.network.to_arrays() if state == "complete" else None
     record = record.__class__(**{**record.__dict__, "valid_forecasts": forecasts, "weights": weights})

@@ -107,8 +107,31 @@ class PruningView:
         self._curve[int(epoch)] = float(score)
         return bool(self._study.pruner.prune(self._study, self._frozen))
 
+    def finish(self, number: int, state: str, value: float | None = None) -> None:
+        """End the running trial as it ended for real, so it counts in this view from now on.
+
+        Args:
+            number: the trial's number in the durable study (refresh will not add it again).
+            state: "complete", "pruned" or "failed" (failed trials never vote, but marks a rung
+                pruner left on them stay, as they do in a durable optuna storage).
+            value: the objective of a complete trial.
+        """
+        trial, self._trial = self._trial, None
+        if trial is None:
+            return
+        if not self._replay_rungs:  # the curve lived in the frozen trial only
+            for epoch, score in sorted(self._curve.items()):
+                trial.report(score, epoch)
+        if state == "complete" and value is not None:
+            self._study.tell(trial, float(value))
+        elif state == "pruned":
+            self._study.tell(trial, state=TrialState.PRUNED)
+        else:
+            self._study.tell(trial, state=TrialState.FAIL)
+        self._seen.add(int(number))
+
     def discard(self) -> None:
-        """End the running trial's curve without keeping it (its record will bring it back in)."""
+        """End the running trial's curve without keeping it."""
         if self._trial is not None:
             self._study.tell(self._trial, state=TrialState.FAIL)
             self._trial = None
