@@ -23,6 +23,7 @@ __all__ = [
     "collect_header",
     "collect_importance",
     "collect_progress",
+    "collect_comparisons",
     "collect_review",
     "collect_rows",
     "collect_scatter",
@@ -371,4 +372,28 @@ def collect_review(tracker, study: str) -> dict:
         looks.append({"sequence": h.sequence, "trial": h.trial, "created": h.created, "command": h.command,
                       "again": h.again, "results": h.results, "metrics": metrics, "n_uses": n_uses,
                       "repeat": bool(h.again or (h.sequence or 1) > 1)})
-    return {"notes": notes, "confirmations": confirmations, "holdouts": looks, "n_holdouts": n_uses}
+    comparisons, n_comparisons = collect_comparisons(tracker, study)
+    return {"notes": notes, "confirmations": confirmations, "holdouts": looks, "n_holdouts": n_uses,
+            "comparisons": comparisons, "n_comparisons": n_comparisons}
+
+
+def collect_comparisons(tracker, study: str) -> tuple[list[dict], int]:
+    """The latest recorded comparison per window (valid first), and how many comparisons the study holds.
+
+    Each keeps its Diebold-Mariano rows on the all-horizons loss (the per-horizon rows stay in the
+    record), the confidence set and the SPA result, each with its plain-words reading.
+    """
+    found = tracker.load_comparisons(study)
+    latest = {c.window: c for c in found}  # in sequence order, so the last one per window wins
+    shown = []
+    for window in ("valid", "test"):
+        if window not in latest:
+            continue
+        c, r = latest[window], latest[window].results
+        shown.append({"sequence": c.sequence, "created": c.created, "window": window, "command": c.command,
+                      "objective": r.get("objective"), "level": r.get("level"), "rows": r.get("rows"),
+                      "first_date": r.get("first_date"), "last_date": r.get("last_date"),
+                      "dm": [d for d in r.get("dm", []) if d.get("horizon") == "all"],
+                      "dm_horizon": r.get("dm_horizon_all"), "mcs": r.get("mcs") or {}, "spa": r.get("spa"),
+                      "spa_skipped": r.get("spa_skipped")})
+    return shown, len(found)

@@ -87,7 +87,8 @@ class BoardData:
             ``reason`` (why it is absent, or None).
         epochs: ``max_epochs``, ``max_epochs_source``, ``trials`` (trial, state, epochs),
             ``n_run``, ``n_saved``, ``saved_share``.
-        review: ``notes``, ``confirmations``, ``holdouts`` (lists of plain dicts) and ``n_holdouts``;
+        review: ``notes``, ``confirmations``, ``holdouts``, ``comparisons`` (lists of plain dicts),
+            ``n_holdouts`` and ``n_comparisons``;
             add more keys here (the template shows the section when any list is non-empty).
         made: ``command``, ``version``, ``time`` (UTC) of this board.
     """

@@ -239,3 +239,28 @@ def test_load_comparisons_reads_a_file_without_the_table_as_empty(memory):
 def test_comparison_record_checks_its_window():
     with pytest.raises(ValueError, match="ComparisonRecord.window must be one of 'valid', 'test'"):
         ComparisonRecord(study="s", created="x", window="train", command="c", results={})
+
+
+# ----------------------------------------------------------------------------------------- the board
+
+
+def test_board_shows_the_latest_comparison_per_window(record, tmp_path):
+    import html
+
+    from sweep.board import collect_board, write_study_board
+
+    db = copy_record(record, tmp_path)
+    with Tracker.open(db, create=False) as t:
+        compare.compare_forecasts(t, top=1, reps=50)
+        latest = compare.compare_forecasts(t, top=2, reps=50)
+        review.holdout_trial(t, 1)
+        on_test = compare.compare_forecasts(t, window="test", top=1, reps=50)
+        shown = collect_board(t, STUDY).review
+    # one entry per window, the newest of each; every comparison counted
+    assert [(c["window"], c["sequence"]) for c in shown["comparisons"]] == [("valid", 2), ("test", 3)]
+    assert shown["n_comparisons"] == 3
+    assert shown["comparisons"][0]["dm"] == [d for d in latest["dm"] if d["horizon"] == "all"]
+    page = html.unescape(write_study_board(db, study=STUDY, out=tmp_path / "board.html").read_text(encoding="utf-8"))
+    assert "Forecast comparisons" in page
+    assert latest["mcs"]["words"] in page and on_test["spa"]["words"] in page
+    assert latest["dm"][0]["words"] in page
