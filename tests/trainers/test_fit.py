@@ -2,6 +2,7 @@
 
 import hashlib
 import math
+import os
 import subprocess
 import sys
 import textwrap
@@ -12,12 +13,21 @@ import pytest
 from sklearn.datasets import load_diabetes, load_digits
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 from sklearn.preprocessing import StandardScaler
+from threadpoolctl import threadpool_limits
 
 from trainers import losses
-from trainers.fit import STOP_REASONS, TrainConfig, fit_mlp, fit_mlp_stacked, train_mlp
+from trainers.fit import STOP_REASONS, TrainConfig, _Stack, fit_mlp, fit_mlp_stacked, train_mlp
 from trainers.mlp import MLPConfig, init_params
 
 pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    """Run on one BLAS thread, as the sweep's workers do: small products are fastest there, and the bits of a
+    result depend on the thread count (same seed and thread count give identical results)."""
+    with threadpool_limits(limits=1):
+        yield
 
 
 def _noise(seed=0, n=120, n_in=5, n_out=2):
@@ -75,7 +85,6 @@ def test_regression_held_out_loss_close_to_sklearn_mlp_regressor():
                           max_iter=epochs, alpha=wd * batch, tol=0.0, n_iter_no_change=epochs + 1,
                           random_state=seed).fit(Xtr, ytr - mu)
         ref.append(losses.mse(sk.predict(Xte) + mu, yte))
-    print("RATIO", np.mean(ours) / np.mean(ref), ours, ref)
     assert np.mean(ours) <= 1.10 * np.mean(ref), (ours, ref)
 
 
@@ -87,7 +96,7 @@ def test_classification_held_out_log_loss_close_to_sklearn_mlp_classifier():
     epochs, batch = 15, 64
     ours, ref = [], []
     for seed in range(3):
-        cfg = MLPConfig(64, 10, (32,), activation="relu", task="classification")
+        cfg = MLPConfig(64, 10, (32,), activation="relu", task="classification", init="glorot")
         tc = TrainConfig(batch_size=batch, max_epochs=epochs, patience=epochs, learning_rate=1e-3)
         res = fit_mlp(cfg, tc, Xtr, ytr, Xtr, ytr, rng=np.random.default_rng(seed))
         ours.append(losses.cross_entropy(res.network.predict_proba(Xte), yte))
@@ -96,7 +105,6 @@ def test_classification_held_out_log_loss_close_to_sklearn_mlp_classifier():
                            max_iter=epochs, alpha=0.0, tol=0.0, n_iter_no_change=epochs + 1,
                            random_state=seed).fit(Xtr, ytr)
         ref.append(losses.cross_entropy(sk.predict_proba(Xte), yte))
-    print("RATIO", np.mean(ours) / np.mean(ref), ours, ref)
     assert np.mean(ours) <= 1.10 * np.mean(ref), (ours, ref)
     assert np.mean(res.network.predict(Xte) == yte) > 0.85
 
@@ -217,6 +225,41 @@ def test_dropout_is_off_in_evaluation():
     assert losses.mse(net.predict(X), y) == pytest.approx(res.train_loss, rel=1e-12)
 
 
+def test_dropout_masks_are_inverted_with_the_configured_rate():
+    X, y, Xv, yv = _signal(13, n=2000)
+    cfg = MLPConfig(4, 2, (50, 30), dropout=0.3)
+    stack = _Stack(cfg, TrainConfig(max_epochs=2), X, y, Xv, yv, [np.random.default_rng(0)], None)
+    stack.run_epoch()
+    for m in stack.masks:
+        # inverted dropout (Srivastava et al. 2014, scaled at training time): kept units are scaled by 1/(1-p)
+        assert set(np.unique(m)) == {0.0, 1 / 0.7}
+        assert abs(np.mean(m == 0) - 0.3) < 0.01  # binomial rate p=0.3 over 60k-100k draws
+        assert m.mean() == pytest.approx(1.0, abs=0.02)  # expectation preserved
+
+
+def test_dropout_never_touches_inputs_or_outputs():
+    # a network without hidden layers has nothing to drop: dropout must change nothing at all
+    X, y, Xv, yv = _signal(14)
+    tc = TrainConfig(batch_size=16, max_epochs=5)
+    a = fit_mlp(MLPConfig(4, 2, (), dropout=0.5), tc, X, y, Xv, yv, rng=np.random.default_rng(3))
+    b = fit_mlp(MLPConfig(4, 2, (), dropout=0.0), tc, X, y, Xv, yv, rng=np.random.default_rng(3))
+    assert a.network.params.tobytes() == b.network.params.tobytes()
+
+
+def test_batch_size_above_rows_is_full_batch():
+    X, y, Xv, yv = _signal(15, n=50)
+    cfg = MLPConfig(4, 2, (8,))
+    full = fit_mlp(cfg, TrainConfig(batch_size=50, max_epochs=4), X, y, Xv, yv, rng=np.random.default_rng(0))
+    huge = fit_mlp(cfg, TrainConfig(batch_size=10**6, max_epochs=4), X, y, Xv, yv, rng=np.random.default_rng(0))
+    assert full.network.params.tobytes() == huge.network.params.tobytes()
+    # one Adam step per epoch: the first step moves every weight that has a gradient by about lr
+    # (Kingma and Ba 2015, section 2.1)
+    one = fit_mlp(cfg, TrainConfig(batch_size=10**6, max_epochs=1), X, y, Xv, yv, rng=np.random.default_rng(0))
+    init = init_params(cfg, rng=np.random.default_rng(0).spawn(2)[0])
+    moved = np.abs(one.network.params - init)
+    assert np.median(moved[moved > 0]) == pytest.approx(1e-3, rel=1e-3)
+
+
 # ---------------------------------------------------------------- determinism and stacking
 
 
@@ -246,7 +289,8 @@ _CHILD = textwrap.dedent("""
 
 
 def test_same_seed_same_result_in_another_process():
-    out = subprocess.run([sys.executable, "-c", _CHILD], capture_output=True, text=True, check=True).stdout
+    env = {**os.environ, "OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+    out = subprocess.run([sys.executable, "-c", _CHILD], capture_output=True, text=True, check=True, env=env).stdout
     rng = np.random.default_rng(0)
     X, y, Xv, yv = (rng.standard_normal(s) for s in [(120, 5), (120, 2), (120, 5), (120, 2)])
     res = fit_mlp(MLPConfig(5, 2, (16, 8), dropout=0.2), TrainConfig(batch_size=16, max_epochs=6),
