@@ -18,7 +18,15 @@ loss; lower is better. An epoch improves when ``value < best - min_delta``. The 
 ``"patience"`` after ``patience`` epochs in a row without improvement, ``"max_epochs"`` at the last
 epoch, ``"diverged"`` when a loss, the score or a weight is not finite (weights restored from the best
 epoch, or the initial weights if no epoch finished), ``"stopped"`` when the caller left the loop. The
-result always holds the best epoch's weights.
+result always holds the best epoch's weights; ``FitResult.note`` says which and why.
+
+Reproducibility: the same data, configs and seed give bit-identical weights and history, in one
+process or another, on the same numpy/BLAS build with the same number of BLAS threads (the bits of a
+matrix product depend on the thread count; the sweep runs one BLAS thread per worker, which is also
+the fastest setting for these small products: use ``threadpoolctl.threadpool_limits(1)`` elsewhere).
+
+Memory: besides the data, an epoch keeps one shuffled copy of the training rows per network and, with
+dropout, the masks of the whole epoch: K * n_train * (n_inputs + 1 + n_outputs + sum(hidden)) numbers.
 """
 
 from __future__ import annotations

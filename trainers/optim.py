@@ -1,8 +1,10 @@
 """Update rules on flat parameter buffers: SGD with momentum and Adam, with L2 weight decay.
 
 Both optimizers work in place on a parameter array of shape (P,) or (K, P) (K stacked networks) and
-a gradient array of the same shape; their state arrays have that shape too, and every step runs a
-fixed handful of numpy calls with ``out=`` buffers (no allocation).
+a gradient array of the same shape; their state arrays have that shape too. ``plan(params, grads)``
+returns the update as a short list of numpy calls bound to those buffers (Adam: 10, SGD with momentum:
+4, plus 2 for weight decay), so the training loop runs a step without allocating; ``step`` is the
+one-off form.
 
 Weight decay convention (L2 penalty, not decoupled): the objective is
 ``loss + weight_decay / 2 * ||W||^2`` over the weights W (``decay_mask`` = 1), never the biases

@@ -5,16 +5,6 @@ import pytest
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 from threadpoolctl import threadpool_limits
 
-pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
-
-
-@pytest.fixture(autouse=True)
-def _one_blas_thread():
-    """Run on one BLAS thread, as the sweep's workers do: small products are fastest there, and the bits of a
-    result depend on the thread count (same seed and thread count give identical results)."""
-    with threadpool_limits(limits=1):
-        yield
-
 from trainers.mlp import (
     ACTIVATIONS,
     MLPConfig,
@@ -27,6 +17,16 @@ from trainers.mlp import (
     n_params,
     unpack_params,
 )
+
+pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    """Run on one BLAS thread, as the sweep's workers do: small products are fastest there, and the bits of a
+    result depend on the thread count (same seed and thread count give identical results)."""
+    with threadpool_limits(limits=1):
+        yield
 
 
 def _numeric_grad(f, x, h=1e-6):
