@@ -8,8 +8,6 @@ tamper with a record.
 """
 
 import json
-import math
-import sqlite3
 import statistics
 
 import numpy as np
