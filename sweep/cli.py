@@ -110,8 +110,10 @@ def run(
     """Create or resume a study and run its trials."""
     from sweep.runner import run_with_progress
 
-    run_with_progress(study_file, trials=trials, workers=workers, db=db, storage=storage,
-                      name=name, write_board=board, console=out)
+    summary = run_with_progress(study_file, trials=trials, workers=workers, db=db, storage=storage,
+                                name=name, write_board=board, console=out)
+    if summary.interrupted:
+        raise typer.Exit(code=130)
 
 
 @app.command()

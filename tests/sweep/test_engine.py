@@ -234,3 +234,37 @@ def test_run_study_trials_are_reproducible_from_the_record(one_worker_study):
     run = objective_module.train_params(spec, inputs, t.params, t.seed)
     curve = [e.valid_loss for _, e in zip(range(t.n_epochs), run)]
     np.testing.assert_array_equal(curve, [e.valid_loss for e in t.epochs])
+
+
+def test_ctrl_c_stops_cleanly_and_the_next_run_resumes(market):
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    path = _write_study(market, "stopped", trials="40", workers="2", max_epochs="100", batch_size="16",
+                        patience="[1000, 1001]", pruner='"none"')
+    record = market / "stopped.sqlite"
+    proc = subprocess.Popen([sys.executable, "-m", "sweep.cli", "run", str(path), "--no-board"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline:
+        time.sleep(0.5)
+        try:
+            if len(Tracker.open(record, create=False).load_trials("stopped", states=("complete",))) >= 2:
+                break
+        except Exception:  # the record is not there yet
+            continue
+    proc.send_signal(signal.SIGINT)
+    out, err = proc.communicate(timeout=120)
+    # a user's stop is not an error: exit code 130 (common practice for SIGINT) and a plain message
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err
+    assert "run the same command again to resume" in out
+    trials = Tracker.open(record).load_trials("stopped")
+    assert all(t.state != "running" for t in trials)
+    n_done = sum(t.state == "complete" for t in trials)
+    assert 2 <= n_done < 40
+    # the next run resumes and reaches the budget; interrupted trials do not use it up
+    summary = run_study(load_spec(path), record_path=record, n_trials=n_done + 2, n_workers=1)
+    assert summary.counts["complete"] == n_done + 2
