@@ -129,6 +129,14 @@ def _search_details(spec) -> str:
     return "; ".join(parts)
 
 
+def _short_commit(commit: str | None) -> str | None:
+    """The first 12 characters of a commit, keeping a "+dirty" mark."""
+    if not commit:
+        return None
+    head, _, rest = commit.partition("+")
+    return head[:12] + ("+" + rest if rest else "")
+
+
 def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs) -> dict:
     """What the top of the board says about the study, its data and how it ran."""
     counts = {state: 0 for state in TRIAL_STATES}
@@ -174,6 +182,7 @@ def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs) ->
         "wall_seconds": _seconds_between(min(starts), max(ends)) if starts and ends else None,
         "code_version": record.code_version,
         "git_commit": record.git_commit,
+        "git_commit_short": _short_commit(record.git_commit),
         "python": record.python,
         "platform": record.platform,
         "spec_hash_short": record.spec_hash[:12],

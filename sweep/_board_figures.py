@@ -35,7 +35,7 @@ def _finite(value) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
-def _layout(fig: go.Figure, *, x: str, y: str, height: int = 340, log_y: bool = False) -> go.Figure:
+def _layout(fig: go.Figure, *, x: str, y: str, height: int = 340) -> go.Figure:
     fig.update_layout(
         template="simple_white", height=height, margin=dict(l=64, r=24, t=36, b=52),
         font=dict(family=FONT, size=13, color="#222"), hovermode="closest",
@@ -43,15 +43,31 @@ def _layout(fig: go.Figure, *, x: str, y: str, height: int = 340, log_y: bool = 
     )
     fig.update_xaxes(title_text=x, showgrid=True, gridcolor="#e6e6e6")
     fig.update_yaxes(title_text=y, showgrid=True, gridcolor="#e6e6e6")
-    if log_y:
-        fig.update_yaxes(type="log")
     return fig
 
 
-def _wide_positive(values) -> bool:
-    """A log axis reads better: every value is positive and they span more than 20 times."""
+def _quantile(values, q: float) -> float:
+    """The q-quantile of values (linear interpolation between order statistics, as numpy's default)."""
+    ordered = sorted(values)
+    pos = q * (len(ordered) - 1)
+    low = math.floor(pos)
+    high = min(low + 1, len(ordered) - 1)
+    return ordered[low] + (ordered[high] - ordered[low]) * (pos - low)
+
+
+def _top_edge(values, keep) -> float | None:
+    """Where to cut the y scale so a few far values do not flatten the rest, or None to show all.
+
+    The scale keeps every value in ``keep`` and 85% of ``values``, plus a margin; it is cut only
+    when the largest value lies beyond that by more than the range kept.
+    """
     values = [v for v in values if _finite(v)]
-    return bool(values) and min(values) > 0 and max(values) / min(values) > 20
+    if len(values) < 5:
+        return None
+    low = min(values)
+    top = max([_quantile(values, 0.85)] + [v for v in keep if _finite(v)])
+    top += 0.08 * (top - low)
+    return top if max(values) > top + (top - low) else None
 
 
 def _progress(data):
@@ -60,31 +76,47 @@ def _progress(data):
     points = [p for p in data.progress if _finite(p["objective"])]
     if not points:
         return None, "Objective by trial: not drawn, no trial has an objective yet."
+    baseline = h["best_baseline"]
+    best = [p for p in data.progress if _finite(p["running_best"])]
+    top = _top_edge([p["objective"] for p in points],
+                    [baseline["objective"] if baseline else None] + [p["running_best"] for p in best[-1:]])
     fig = go.Figure()
+    n_above = 0
     for state in ("complete", "pruned"):
         chosen = [p for p in points if p["state"] == state]
-        if chosen:
-            colour, symbol = STATE_STYLE[state]
+        inside = [p for p in chosen if top is None or p["objective"] <= top]
+        above = [p for p in chosen if top is not None and p["objective"] > top]
+        colour, symbol = STATE_STYLE[state]
+        if inside:
             fig.add_trace(go.Scatter(
-                x=[p["trial"] for p in chosen], y=[p["objective"] for p in chosen], mode="markers", name=state,
+                x=[p["trial"] for p in inside], y=[p["objective"] for p in inside], mode="markers", name=state,
                 marker=dict(color=colour, symbol=symbol, size=7, line=dict(width=1, color=colour)),
                 hovertemplate=f"trial %{{x}} ({state})<br>{objective} %{{y:.4g}}<extra></extra>"))
-    best = [p for p in data.progress if _finite(p["running_best"])]
+        if above:  # drawn on the top edge as triangles; the hover gives the value
+            n_above += len(above)
+            fig.add_trace(go.Scatter(
+                x=[p["trial"] for p in above], y=[top] * len(above), customdata=[p["objective"] for p in above],
+                mode="markers", name=f"{state}, above the scale", cliponaxis=False,
+                marker=dict(color=colour, symbol="triangle-up", size=8),
+                hovertemplate=f"trial %{{x}} ({state})<br>{objective} %{{customdata:.4g}} (above the scale)"
+                              "<extra></extra>"))
     if best:
         fig.add_trace(go.Scatter(x=[p["trial"] for p in best], y=[p["running_best"] for p in best], mode="lines",
                                  name="best so far", line=dict(color=OKABE_ITO["bluish_green"], width=2, shape="hv"),
                                  hoverinfo="skip"))
-    baseline = h["best_baseline"]
     text = "no baseline recorded"
     if baseline is not None:
         fig.add_hline(y=baseline["objective"], line=dict(color=OKABE_ITO["black"], dash="dash", width=1.5),
                       annotation_text=f"best baseline: {baseline['name']}", annotation_position="top left")
         text = f"the dashed line is the best baseline ({baseline['name']}); points below it beat every baseline"
     direction = "higher" if h["direction"] == "maximize" else "lower"
-    _layout(fig, x="trial number", y=f"{objective} (validation)",
-            log_y=_wide_positive([p["objective"] for p in points] + [p["running_best"] for p in best]))
+    _layout(fig, x="trial number", y=f"{objective} (validation)")
+    if top is not None:
+        low = min(p["objective"] for p in points)
+        fig.update_yaxes(range=[low - 0.04 * (top - low), top])
+    cut = f" {n_above} trials far above the rest sit on the top edge as triangles." if n_above else ""
     return fig, (f"Each point is one trial's {objective} on the validation window ({direction} is better; "
-                 f"crosses are pruned trials); the green line is the best complete trial so far and {text}.")
+                 f"crosses are pruned trials); the green line is the best complete trial so far and {text}.{cut}")
 
 
 def _curves(data):
@@ -107,10 +139,18 @@ def _curves(data):
                                                                    line=dict(width=1, color="#fff")),
                                      hovertemplate=f"{group} best epoch %{{x}}<extra></extra>"))
     values = [v for c in data.curves for v in c["valid_loss"] + c["train_loss"]]
-    _layout(fig, x="epoch", y="loss (training loss function)", height=380, log_y=_wide_positive(values))
+    after_best = [v for c in data.curves for k, e in enumerate(c["epoch"]) if e >= c["best_epoch"]
+                  for v in (c["valid_loss"][k], c["train_loss"][k])]
+    top = _top_edge(values, after_best)
+    _layout(fig, x="epoch", y="loss (training loss function)", height=380)
+    cut = ""
+    if top is not None:
+        low = min(v for v in values if _finite(v))
+        fig.update_yaxes(range=[low - 0.04 * (top - low), top])
+        cut = " The scale is cut at the top; the first epochs start above it."
     return fig, (f"Validation loss (solid) and training loss (dotted, same colour) per epoch of the "
-                 f"{len(data.curves)} best complete trials; the diamond is the best epoch, whose weights were kept. "
-                 "A validation line that rises while its training line keeps falling is overfitting.")
+                 f"{len(data.curves)} best complete trials; the diamond marks the best epoch (its weights are kept). "
+                 f"Validation rising while training keeps falling is overfitting.{cut}")
 
 
 def _gap(data, name: str, label: str):
@@ -119,22 +159,33 @@ def _gap(data, name: str, label: str):
     if not points:
         return None, f"Overfit gap against {label}: not drawn, {part['reason']}."
     objective = data.header["objective"]
+    colours = [p["objective"] for p in points if _finite(p["objective"])] or [0.0]
+    top = _top_edge([p["gap"] for p in points], [])
+    above = [top is not None and p["gap"] > top for p in points]
     fig = go.Figure(go.Scatter(
-        x=[p["x"] for p in points], y=[p["gap"] for p in points], mode="markers", name="complete trial",
-        customdata=[[p["trial"], p["gap_ratio"] if _finite(p["gap_ratio"]) else None, p["objective"]]
+        x=[p["x"] for p in points], y=[top if up else p["gap"] for p, up in zip(points, above)], mode="markers",
+        name="complete trial", cliponaxis=False,
+        customdata=[[p["trial"], p["gap"], p["gap_ratio"] if _finite(p["gap_ratio"]) else None, p["objective"]]
                     for p in points],
         marker=dict(size=8, color=[p["objective"] for p in points], colorscale=OBJECTIVE_SCALE, showscale=True,
+                    cmin=min(colours), cmax=_quantile(colours, 0.9) if len(colours) >= 5 else max(colours),
+                    symbol=["triangle-up" if up else "circle" for up in above],
                     colorbar=dict(title=dict(text=objective), thickness=14), line=dict(width=0.5, color="#333")),
-        hovertemplate=(f"trial %{{customdata[0]}}<br>{label} %{{x}}<br>gap %{{y:.4g}} (ratio %{{customdata[1]:.3f}})"
-                       f"<br>{objective} %{{customdata[2]:.4g}}<extra></extra>")))
+        hovertemplate=(f"trial %{{customdata[0]}}<br>{label} %{{x}}<br>gap %{{customdata[1]:.4g}} "
+                       f"(ratio %{{customdata[2]:.3f}})<br>{objective} %{{customdata[3]:.4g}}<extra></extra>")))
     fig.add_hline(y=0, line=dict(color="#888", width=1))
     _layout(fig, x=label, y="overfit gap (validation - training loss)")
+    if top is not None:
+        low = min(0.0, min(p["gap"] for p in points))
+        fig.update_yaxes(range=[low - 0.04 * (top - low), top])
     xs = [p["x"] for p in points]
     if name == "hidden_units" and min(xs) > 0 and max(xs) / min(xs) > 4:  # units read better on a log scale
         fig.update_xaxes(type="log")
+    n_above = sum(above)
+    cut = f" {n_above} trials with far larger gaps sit on the top edge as triangles." if n_above else ""
     return fig, (f"Each point is a complete trial: its overfit gap at the best epoch (validation minus training "
-                 f"loss; above 0 the network does worse on data it did not train on) against its {label}, "
-                 f"coloured by {objective} (darker is lower); the hover shows the ratio too.")
+                 f"loss; above 0 it does worse on data it did not train on) against its {label}, coloured by "
+                 f"{objective} (darker is lower; the worst tenth share the lightest colour).{cut}")
 
 
 def _importance(data):

@@ -195,6 +195,17 @@ def _duration(seconds) -> str:
     return f"{hours} h {minutes:02d} min"
 
 
+def _utc(text: str) -> str:
+    """ISO time text as "2026-03-01 12:00:00 UTC" (converted to UTC); other text as it is."""
+    try:
+        moment = datetime.fromisoformat(text)
+    except (TypeError, ValueError):
+        return str(text)
+    if moment.tzinfo is not None:
+        moment = moment.astimezone(timezone.utc)
+    return moment.strftime("%Y-%m-%d %H:%M:%S") + " UTC"
+
+
 def _breakable(name: str) -> str:
     """A long setting name that may wrap after each underscore (a zero-width space follows it)."""
     return str(name).replace("_", "_\u200b")
@@ -212,6 +223,7 @@ def _environment() -> Environment:
     env.filters["duration"] = _duration
     env.filters["setting"] = format_value
     env.filters["breakable"] = _breakable
+    env.filters["utc"] = _utc
     return env
 
 

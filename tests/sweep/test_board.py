@@ -281,7 +281,7 @@ def test_write_board_is_one_offline_file(data, tmp_path):
     assert sum(1 for t, a in page.tags if t == "tr" and "data-state" in a) == 8
     assert sum(1 for t, a in page.tags if t == "tr" and "behind" in (a.get("class") or "")) == 4
     assert "SR 11-7, 2011" in page.text_by_id["caution"] and "not advice" in page.text_by_id["caution"]
-    assert "volsweep board larkspur.sqlite" in html and NOW in html
+    assert "volsweep board larkspur.sqlite" in html and "2026-03-01 12:00:00 UTC" in html  # NOW, shown in UTC
     assert page.count("section", id="chosen") == 0  # no review records: no chosen-trial section
 
 
