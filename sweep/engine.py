@@ -165,8 +165,20 @@ def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec,
 
 
 def _min_rows(spec: StudySpec) -> int:
-    # warm-up of the longest HAR window, the longest horizon and room for three windows
-    return max(spec.features.har_windows) + max(spec.target.horizons) + 3 * spec.split.embargo + 30
+    """Fewest price rows a study can use: warm-up of its longest look-back, its longest horizon and
+    room for three windows with their embargo gaps."""
+    look_back = max((*spec.features.har_windows, *spec.features.extra_lags, 22), default=22)
+    if spec.target.estimator == "yang_zhang":
+        look_back += spec.target.yang_zhang_window
+    return look_back + max(spec.target.horizons) + 3 * spec.split.embargo + 30
+
+
+def _check_runnable(spec: StudySpec) -> None:
+    if spec.split.folds:
+        raise VolsweepError(
+            f"split.folds = {spec.split.folds}: walk-forward folds are checked in the study file but "
+            "this version of the sweep runs one chronological split; set split.folds = 0"
+        )
 
 
 def _load_price_data(spec: StudySpec):
@@ -179,11 +191,6 @@ def _load_price_data(spec: StudySpec):
         )
     except PriceFileError as exc:
         raise DataError(f"{exc}\nfix the file, or set data.bad_rows = \"drop\" to drop bad rows") from exc
-    except FileNotFoundError as exc:
-        raise DataError(
-            f"price file {spec.data.file} not found; set data.file in the study file "
-            "(relative paths start at the study file's folder)"
-        ) from exc
 
 
 def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: str) -> StudyInputs:
@@ -371,6 +378,7 @@ def run_study(
         DataError, StudyChanged: nothing is run or written in those cases.
     """
     t0 = time.perf_counter()
+    _check_runnable(spec)
     record_path = Path(record_path)
     storage_url = storage or str(default_storage_path(record_path))
     n_target = int(n_trials if n_trials is not None else spec.study.trials)

@@ -268,3 +268,20 @@ def test_ctrl_c_stops_cleanly_and_the_next_run_resumes(market):
     # the next run resumes and reaches the budget; interrupted trials do not use it up
     summary = run_study(load_spec(path), record_path=record, n_trials=n_done + 2, n_workers=1)
     assert summary.counts["complete"] == n_done + 2
+
+
+def test_run_study_with_an_optuna_sqlite_storage_in_the_record_file(market):
+    # optuna's tables and the record's share one SQLite file when asked (`--storage sqlite:///...`)
+    spec = load_spec(_write_study(market, "rdb", trials="2"))
+    record = market / "rdb.sqlite"
+    summary = run_study(spec, record_path=record, storage=f"sqlite:///{record}", n_workers=1)
+    assert sum(summary.counts.values()) == 2
+    engine = optuna.load_study(study_name="rdb", storage=open_storage(f"sqlite:///{record}"))
+    assert len(engine.trials) == len(Tracker.open(record).load_trials("rdb")) == 2
+
+
+def test_run_study_refuses_walk_forward_folds_before_writing(market, tmp_path):
+    spec = load_spec(_write_study(market, "folds", folds="3"))
+    with pytest.raises(Exception, match="split.folds"):
+        run_study(spec, record_path=tmp_path / "folds.sqlite", n_workers=1)
+    assert not (tmp_path / "folds.sqlite").exists()
