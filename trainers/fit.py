@@ -6,8 +6,9 @@ the end. ``fit_mlp_stacked`` trains K networks of one shape in one pass (paramet
 matrix products), each with its own generator, and gives the same results as K calls of ``fit_mlp``.
 
 Per network, ``init_rng, shuffle_rng = rng.spawn(2)``: the initial weights come from ``init_rng``; each
-epoch draws, from ``shuffle_rng``, first the permutation of the training rows, then one uniform array
-(n_train, h) per hidden layer for the dropout masks of the whole epoch (only when dropout > 0).
+epoch draws, from ``shuffle_rng``, first the permutation of the training rows, then n_train * h uniform
+numbers per hidden layer for the dropout masks of the whole epoch (only when dropout > 0; the batch of
+shuffled rows s..e takes numbers s*h..e*h as its (h, e - s) mask).
 
 Each epoch: batches of ``batch_size`` rows in the shuffled order (the last, partial batch is kept;
 ``batch_size >= n_train`` is full-batch gradient descent), then the training and validation losses in
@@ -240,7 +241,8 @@ class _Stack:
         b = min(self.tcfg.batch_size, n)
         self.workspace = Workspace(cfg, k, b)
         self.shuffled = np.empty((k, n, self.xy.shape[1]), self.dtype)
-        self.masks = [np.empty((k, n, h), self.dtype) for h in cfg.hidden] if cfg.dropout > 0 else []
+        # per hidden layer, the epoch's masks: a batch of rows s..e uses the contiguous block [s*h, e*h) as (h, b)
+        self.masks = [np.empty((k, n * h), self.dtype) for h in cfg.hidden] if cfg.dropout > 0 else []
         # evaluation of the training and validation windows in one pass over their stacked rows
         self.evaluator = Evaluator(cfg, k, np.concatenate([self.X_train, self.X_valid]))
         self.eval_ops = self.evaluator.plan(self.weights)
@@ -249,7 +251,8 @@ class _Stack:
         update = self.optimizer.plan(self.params, self.workspace.grads)
         self.ops = []
         for s in range(0, n, b):
-            masks = [m[:, s:s + b] for m in self.masks] or None
+            e = min(s + b, n)
+            masks = [m[:, s * h:e * h].reshape(k, h, e - s) for m, h in zip(self.masks, cfg.hidden)] or None
             self.ops += self.workspace.plan(self.weights, self.shuffled[:, s:s + b, :c],
                                             self.shuffled[:, s:s + b, c:], masks)
             self.ops += update

@@ -306,71 +306,81 @@ class Workspace:
     fixed buffers with ``functools.partial``) that, run in order, write the gradient of the mean batch
     loss of every network into ``self.grads`` (K, P), with no array allocation. The inputs are views
     that stay valid (for example rows of an epoch's shuffled copy of the data), so a plan is built once
-    per batch and rerun every epoch. Dropout masks are passed in, already scaled by 1 / (1 - p).
+    per batch and rerun every epoch.
+
+    The pass runs transposed: hidden activations are held as (K, units, rows) with a last row of ones,
+    so every elementwise call works on contiguous memory and the bias rides along in the products.
 
     Args:
         config: the networks' shape.
         n_models: K.
-        batch_size: B, the largest batch.
+        batch_size: B, the largest batch (buffers for other batch sizes are added when first planned).
     """
 
     def __init__(self, config: MLPConfig, n_models: int, batch_size: int) -> None:
-        dt = np.dtype(config.dtype)
-        K, B = n_models, batch_size
         self.config = config
-        self.n_models, self.batch_size = K, B
-        self.grads = np.zeros((K, n_params(config)), dtype=dt)
+        self.dtype = np.dtype(config.dtype)
+        self.n_models, self.batch_size = n_models, batch_size
+        self.grads = np.zeros((n_models, n_params(config)), dtype=self.dtype)
         self.grad_views = unpack_params(self.grads, config)
-        self._z = [np.empty((K, B, h), dt) for h in config.hidden]
-        self._a = [np.ones((K, B, h + 1), dt) for h in config.hidden]  # last column stays 1
-        self._da = [np.empty((K, B, h), dt) for h in config.hidden]
-        self._deriv = [np.empty((K, B, h), dt) for h in config.hidden]
-        self._out = np.empty((K, B, config.n_outputs), dt)
-        self._row = np.empty((K, B, 1), dt)
+        self._buffers: dict[int, dict] = {}
+        self._get_buffers(batch_size)
+
+    def _get_buffers(self, b: int) -> dict:
+        buf = self._buffers.get(b)
+        if buf is None:
+            K, dt, hs = self.n_models, self.dtype, self.config.hidden
+            buf = {"z": [np.empty((K, h, b), dt) for h in hs],
+                   "a": [np.ones((K, h + 1, b), dt) for h in hs],  # last row stays 1 (bias input)
+                   "da": [np.empty((K, h, b), dt) for h in hs],
+                   "deriv": [np.empty((K, h, b), dt) for h in hs],
+                   "out": np.empty((K, self.config.n_outputs, b), dt), "row": np.empty((K, 1, b), dt)}
+            self._buffers[b] = buf
+        return buf
 
     def plan(self, weights: list[np.ndarray], X: np.ndarray, Y: np.ndarray, masks=None) -> list:
         """Calls computing forward (training mode), loss gradient and backward for one batch.
 
         Args:
             weights: per-layer views (K, fan_in + 1, fan_out) of the parameters (``unpack_params``).
-            X: batch inputs with a trailing column of ones, shape (K, b, n_inputs + 1), b <= B.
+            X: batch inputs with a trailing column of ones, shape (K, b, n_inputs + 1).
             Y: regression targets or one-hot labels, shape (K, b, n_outputs).
-            masks: None, or per hidden layer the scaled dropout mask (K, b, h).
+            masks: None, or per hidden layer the dropout mask scaled by 1 / (1 - p), shape (K, h, b)
+                (units by rows), preferably contiguous.
 
         Returns:
             A list of callables; run them in order (``for op in ops: op()``).
         """
         b = X.shape[1]
+        buf = self._get_buffers(b)
         act, ops = self.config.activation, []
-        inp = X
-        derivs = []
+        wt = [w.transpose(0, 2, 1) for w in weights]
+        inp = X.transpose(0, 2, 1)  # (K, n_inputs + 1, b), the last row is the ones column of X
         for i, h in enumerate(self.config.hidden):
-            z, a, t = self._z[i][:, :b], self._a[i][:, :b], self._deriv[i][:, :b]
-            av = a[..., :h]
-            mask = None if masks is None else masks[i]
-            ops.append(partial(np.matmul, inp, weights[i], z))
-            ops.extend(_activation_ops(act, z, av, t, mask))
-            derivs.append(t)
+            z, a, t = buf["z"][i], buf["a"][i], buf["deriv"][i]
+            ops.append(partial(np.matmul, wt[i], inp, z))
+            ops.extend(_activation_ops(act, z, a[:, :h], t, None if masks is None else masks[i]))
             inp = a
-        out = self._out[:, :b]
-        ops.append(partial(np.matmul, inp, weights[-1], out))
+        out = buf["out"]
+        ops.append(partial(np.matmul, wt[-1], inp, out))
+        Yt = Y.transpose(0, 2, 1)
         if self.config.task == "classification":
-            row = self._row[:, :b]
-            ops += [partial(np.maximum.reduce, out, -1, None, row, True), partial(np.subtract, out, row, out),
-                    partial(np.exp, out, out), partial(np.add.reduce, out, -1, None, row, True),
-                    partial(np.divide, out, row, out), partial(np.subtract, out, Y, out),
+            row = buf["row"]
+            ops += [partial(np.maximum.reduce, out, 1, None, row, True), partial(np.subtract, out, row, out),
+                    partial(np.exp, out, out), partial(np.add.reduce, out, 1, None, row, True),
+                    partial(np.divide, out, row, out), partial(np.subtract, out, Yt, out),
                     partial(np.multiply, out, 1.0 / b, out)]  # (softmax - Y) / b
         else:
-            ops += [partial(np.subtract, out, Y, out),
+            ops += [partial(np.subtract, out, Yt, out),
                     partial(np.multiply, out, 2.0 / (b * self.config.n_outputs), out)]  # 2 (f - y) / (b m)
-        d = out
+        d = out  # dL/dz of the current layer, (K, fan_out, b)
         for i in range(len(weights) - 1, -1, -1):
-            inp = X if i == 0 else self._a[i - 1][:, :b]
-            ops.append(partial(np.matmul, inp.transpose(0, 2, 1), d, self.grad_views[i]))
+            inp = X.transpose(0, 2, 1) if i == 0 else buf["a"][i - 1]
+            ops.append(partial(np.matmul, inp, d.transpose(0, 2, 1), self.grad_views[i]))
             if i > 0:
-                da = self._da[i - 1][:, :b]
-                ops.append(partial(np.matmul, d, weights[i][:, :-1, :].transpose(0, 2, 1), da))
-                ops.append(partial(np.multiply, da, derivs[i - 1], da))
+                da = buf["da"][i - 1]
+                ops.append(partial(np.matmul, weights[i][:, :-1, :], d, da))
+                ops.append(partial(np.multiply, da, buf["deriv"][i - 1], da))
                 d = da
         return ops
 
@@ -475,7 +485,8 @@ def loss_and_grad(config: MLPConfig, params: np.ndarray, X: np.ndarray, y: np.nd
          else np.asarray(y, dtype=dt).reshape(n, config.n_outputs))[None]
     p = np.array(params, dtype=dt)[None]
     ws = Workspace(config, 1, n)
-    ws.gradients(unpack_params(p, config), Xa, Y, None if masks is None else [np.asarray(m, dt)[None] for m in masks])
+    ws.gradients(unpack_params(p, config), Xa, Y,
+                 None if masks is None else [np.ascontiguousarray(np.asarray(m, dt).T)[None] for m in masks])
     # the objective value, from an independent plain forward pass with the same masks
     h = X
     views = unpack_params(p[0], config)
