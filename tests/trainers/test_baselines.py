@@ -12,15 +12,20 @@ from arch import arch_model
 
 from trainers.baselines import BASELINES, EWMA_INIT_DAYS, forecast_baselines
 from trainers.features import FeatureConfig, build_dataset
+from trainers.scenario import generate_market
 from trainers.splits import Windows, split_by_fraction
 
 HORIZONS = (1, 5, 22)
 
 
-@pytest.fixture(scope="module")
-def sp500():
-    """The first 1500 days of the S&P 500 (open dataset shipped by arch), Garman-Klass proxy."""
-    px = arch.data.sp500.load().rename(columns=str.lower)[["open", "high", "low", "close"]].iloc[:1500]
+@pytest.fixture(scope="module", params=["sp500", "demo_market"])
+def dataset(request):
+    """Garman-Klass proxy of the first 1500 days of the S&P 500 (open dataset shipped by arch), or of
+    1500 days of the invented demo market's index (trainers.scenario)."""
+    if request.param == "sp500":
+        px = arch.data.sp500.load().rename(columns=str.lower)[["open", "high", "low", "close"]].iloc[:1500]
+    else:
+        px = generate_market(seed=11, n_days=1500)["harbor_index"]
     ds = build_dataset(px, estimator="garman_klass", horizons=HORIZONS)
     windows = split_by_fraction(len(ds.dates), valid=0.2, test=0.2, embargo=22)
     return ds, windows
@@ -67,8 +72,8 @@ def _har_design(ds, log):
 
 
 # ----------------------------------------------------------------------------- shape and trivial cases
-def test_forecast_baselines_shape_and_json(sp500):
-    ds, w = sp500
+def test_forecast_baselines_shape_and_json(dataset):
+    ds, w = dataset
     out = forecast_baselines(ds, w, horizons=HORIZONS)
     assert list(out) == list(BASELINES)
     for name, res in out.items():
@@ -80,8 +85,8 @@ def test_forecast_baselines_shape_and_json(sp500):
         json.dumps(res.params)  # params must be plain JSON types
 
 
-def test_random_walk_is_last_proxy_value(sp500):
-    ds, w = sp500
+def test_random_walk_is_last_proxy_value(dataset):
+    ds, w = dataset
     f = forecast_baselines(ds, w, horizons=HORIZONS, names=("random_walk",))["random_walk"].forecasts
     # random walk: tomorrow's variance is today's proxy, for every horizon (common practice)
     for col in f.columns:
@@ -90,8 +95,8 @@ def test_random_walk_is_last_proxy_value(sp500):
 
 # ----------------------------------------------------------------------------- EWMA
 @pytest.mark.parametrize("lam", [0.94, 0.97])
-def test_ewma_equals_plain_python_recursion(sp500, lam):
-    ds, w = sp500
+def test_ewma_equals_plain_python_recursion(dataset, lam):
+    ds, w = dataset
     res = forecast_baselines(ds, w, horizons=HORIZONS, names=("ewma",), ewma_lambda=lam)["ewma"]
     # RiskMetrics Technical Document (J.P. Morgan/Reuters 1996): s2_{t+1} = lam s2_t + (1 - lam) r_t^2,
     # seeded with the mean squared return of the first 22 returns from the first training origin
@@ -109,8 +114,8 @@ def test_ewma_equals_plain_python_recursion(sp500, lam):
 
 # ----------------------------------------------------------------------------- HAR
 @pytest.mark.parametrize("log", [True, False])
-def test_har_coefficients_equal_statsmodels(sp500, log):
-    ds, w = sp500
+def test_har_coefficients_equal_statsmodels(dataset, log):
+    ds, w = dataset
     res = forecast_baselines(ds, w, horizons=HORIZONS, names=("har",), log=log)["har"]
     Z, targets, _ = _har_design(ds, log)
     for h in HORIZONS:
@@ -125,8 +130,8 @@ def test_har_coefficients_equal_statsmodels(sp500, log):
         np.testing.assert_allclose(res.forecasts[f"h{h}"].to_numpy(), level, rtol=1e-8)
 
 
-def test_har_drops_training_targets_unknown_at_validation_start(sp500):
-    ds, _ = sp500
+def test_har_drops_training_targets_unknown_at_validation_start(dataset):
+    ds, _ = dataset
     n = len(ds.dates)
     w = Windows(train=np.arange(0, 800), valid=np.arange(803, 1100), test=np.arange(1130, n), embargo=2)
     res = forecast_baselines(ds, w, horizons=HORIZONS, names=("har",))["har"]
@@ -138,8 +143,8 @@ def test_har_drops_training_targets_unknown_at_validation_start(sp500):
 
 
 @pytest.mark.parametrize("refit", [1, 7])
-def test_har_rolling_equals_statsmodels_on_known_rows(sp500, refit):
-    ds, w = sp500
+def test_har_rolling_equals_statsmodels_on_known_rows(dataset, refit):
+    ds, w = dataset
     window, min_rows = 400, 120
     res = forecast_baselines(ds, w, horizons=HORIZONS, names=("har_rolling",), har_window=window,
                              har_min_rows=min_rows, har_refit=refit)["har_rolling"]
@@ -159,8 +164,8 @@ def test_har_rolling_equals_statsmodels_on_known_rows(sp500, refit):
 
 
 # ----------------------------------------------------------------------------- GARCH
-def test_garch_equals_arch_and_garch_recursion(sp500):
-    ds, w = sp500
+def test_garch_equals_arch_and_garch_recursion(dataset):
+    ds, w = dataset
     res = forecast_baselines(ds, w, horizons=HORIZONS, names=("garch",))["garch"]
     r = 100 * ds.returns.loc[ds.dates[w.train[0]]:]
     n_fit = ds.returns.index.get_loc(ds.dates[w.train[-1]]) - ds.returns.index.get_loc(ds.dates[w.train[0]]) + 1
@@ -241,22 +246,22 @@ def test_har_uses_corsi_windows_even_when_study_features_differ():
         ({"horizons": (0,)}, "horizons must be an integer >= 1"),
     ],
 )
-def test_forecast_baselines_rejects_bad_settings(sp500, kwargs, match):
-    ds, w = sp500
+def test_forecast_baselines_rejects_bad_settings(dataset, kwargs, match):
+    ds, w = dataset
     args = {"horizons": HORIZONS} | kwargs
     with pytest.raises(ValueError, match=match):
         forecast_baselines(ds, w, **args)
 
 
-def test_forecast_baselines_rejects_windows_outside_dataset(sp500):
-    ds, _ = sp500
+def test_forecast_baselines_rejects_windows_outside_dataset(dataset):
+    ds, _ = dataset
     w = Windows(train=np.arange(0, 100), valid=np.arange(130, 200), test=np.arange(230, 5000), embargo=22)
     with pytest.raises(ValueError, match="windows.test has row positions outside"):
         forecast_baselines(ds, w, horizons=HORIZONS)
 
 
-def test_har_rolling_needs_enough_rows_before_validation(sp500):
-    ds, _ = sp500
+def test_har_rolling_needs_enough_rows_before_validation(dataset):
+    ds, _ = dataset
     n = len(ds.dates)
     w = Windows(train=np.arange(0, 200), valid=np.arange(223, 600), test=np.arange(623, n), embargo=22)
     # 200 training rows cannot give the 250-row rolling fit the first validation origin needs
