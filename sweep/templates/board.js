@@ -96,4 +96,33 @@
     box.addEventListener("change", applyFilter);
   });
   applyFilter();
+
+  // Printing: plotly draws at the screen's width, which can be wider than a page. Before printing,
+  // narrow wide plots to a landscape A4 or Letter page less its margins; restore them afterwards.
+  var PRINT_WIDTH = 940;
+  function plots() {
+    return Array.prototype.slice.call(document.querySelectorAll(".js-plotly-plot"));
+  }
+  window.addEventListener("beforeprint", function () {
+    if (!window.Plotly) {
+      return;
+    }
+    plots().forEach(function (plot) {
+      if (plot.offsetWidth > PRINT_WIDTH) {
+        plot.setAttribute("data-print-width", "1");
+        window.Plotly.relayout(plot, { width: PRINT_WIDTH });
+      }
+    });
+  });
+  window.addEventListener("afterprint", function () {
+    if (!window.Plotly) {
+      return;
+    }
+    plots().forEach(function (plot) {
+      if (plot.hasAttribute("data-print-width")) {
+        plot.removeAttribute("data-print-width");
+        window.Plotly.relayout(plot, { width: null, autosize: true });
+      }
+    });
+  });
 })();

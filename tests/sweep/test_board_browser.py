@@ -148,3 +148,14 @@ def test_board_filters_rows_by_state(page):
     assert page.find_element(By.ID, "row-count").text.startswith("6 of 8 rows")
     page.find_element(By.CSS_SELECTOR, "input[name='state'][value='baseline']").click()
     assert _column(page, "state") == ["complete", "complete", "complete", "failed"]
+
+
+def test_board_narrows_wide_plots_for_printing(page):
+    widths = ("return Array.from(document.querySelectorAll('.js-plotly-plot'))"
+              ".map(p => Number(p.querySelector('svg.main-svg').getAttribute('width')))")
+    screen = page.execute_script(widths)
+    assert len(screen) == N_PLOTS and min(screen) > 940  # the 1300 px window draws them wider than a page
+    printed = page.execute_script("window.dispatchEvent(new Event('beforeprint')); " + widths)
+    assert printed == [940] * N_PLOTS  # PRINT_WIDTH in board.js: a landscape page less its margins
+    restored = page.execute_script("window.dispatchEvent(new Event('afterprint')); " + widths)
+    assert restored == screen
