@@ -108,8 +108,8 @@ class MLPConfig:
                   "set space.activation in the study file to relu, tanh or sigmoid")
         if self.init not in INITS:
             _fail("init", f"one of {INITS}", self.init, "set init to he, glorot or auto")
-        if (isinstance(self.dropout, (bool, np.bool_)) or not isinstance(self.dropout, (int, float, np.floating, np.integer))
-                or not 0.0 <= float(self.dropout) < 1.0):
+        real = isinstance(self.dropout, (int, float, np.floating, np.integer)) and not isinstance(self.dropout, bool)
+        if not real or not 0.0 <= float(self.dropout) < 1.0:
             _fail("dropout", "a number with 0 <= dropout < 1", self.dropout,
                   "set space.dropout in the study file to a rate such as 0.1 (0 turns dropout off)")
         object.__setattr__(self, "dropout", float(self.dropout))
