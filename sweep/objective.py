@@ -10,7 +10,7 @@ import os
 import socket
 import time
 import traceback
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import datetime, timezone
 
 import numpy as np
@@ -190,7 +190,7 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
     view.finish(trial.number, state, record.objective)
     forecasts = valid_forecasts(inputs, result) if result.best_epoch > 0 else None
     weights = result.network.to_arrays() if state == "complete" else None
-    record = record.__class__(**{**record.__dict__, "valid_forecasts": forecasts, "weights": weights})
+    record = replace(record, valid_forecasts=forecasts, weights=weights)
     tracker.record_trial(record)
     if state == "pruned":
         # one intermediate value, so optuna's value of a pruned trial is the recorded objective
