@@ -27,6 +27,7 @@ STATE_STYLE = {  # colour and marker symbol per state
     "running": (OKABE_ITO["sky_blue"], "square"),
 }
 OBJECTIVE_SCALE = "Cividis"
+MAX_BARS = 300  # the epochs picture draws bars up to this many trials, points beyond
 PLOT_CONFIG = {"displaylogo": False, "displayModeBar": False, "responsive": True}
 FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
 
@@ -208,14 +209,21 @@ def _epochs(data):
     e = data.epochs
     if not e["trials"]:
         return None, "Epochs per trial: not drawn, the study has no trial yet."
+    as_bars = len(e["trials"]) <= MAX_BARS  # past that, bars get thinner than a pixel: draw points
     fig = go.Figure()
     for state in ("complete", "pruned", "failed", "running"):
         chosen = [t for t in e["trials"] if t["state"] == state]
-        if chosen:
-            colour, _ = STATE_STYLE[state]
-            fig.add_trace(go.Bar(x=[t["trial"] for t in chosen], y=[t["epochs"] for t in chosen], name=state,
-                                 marker=dict(color=colour, pattern_shape="/" if state == "pruned" else ""),
-                                 hovertemplate=f"trial %{{x}} ({state}): %{{y}} epochs<extra></extra>"))
+        if not chosen:
+            continue
+        colour, symbol = STATE_STYLE[state]
+        x, y = [t["trial"] for t in chosen], [t["epochs"] for t in chosen]
+        hover = f"trial %{{x}} ({state}): %{{y}} epochs<extra></extra>"
+        if as_bars:
+            fig.add_trace(go.Bar(x=x, y=y, name=state, hovertemplate=hover,
+                                 marker=dict(color=colour, pattern_shape="/" if state == "pruned" else "")))
+        else:
+            fig.add_trace(go.Scatter(x=x, y=y, name=state, mode="markers", hovertemplate=hover,
+                                     marker=dict(color=colour, symbol=symbol, size=5)))
     fig.add_hline(y=e["max_epochs"], line=dict(color=OKABE_ITO["black"], dash="dot", width=1),
                   annotation_text=f"max_epochs {e['max_epochs']}", annotation_position="top left")
     _layout(fig, x="trial number", y="epochs run")
@@ -227,7 +235,8 @@ def _epochs(data):
                  f"{e['n_pruned']} pruned trials would still have had up to max_epochs, divided by that plus the "
                  f"{e['n_run']} epochs actually run by all trials (an upper bound: early stopping may have "
                  "ended some sooner)")
-    return fig, f"Epochs each trial ran, complete (solid) against pruned (hatched); {saved}."
+    shown = "complete (solid bars) against pruned (hatched)" if as_bars else "complete (dots) against pruned (crosses)"
+    return fig, f"Epochs each trial ran, {shown}; {saved}."
 
 
 def build_figures(data) -> list[tuple[str, str, go.Figure | None]]:

@@ -131,9 +131,11 @@ def write_review(tracker: Tracker, name: str = "larkspur", *, note_text: str = "
 
 
 def write_many(tracker: Tracker, name: str, n_trials: int, n_epochs: int, *, seed: int = 0) -> None:
-    """A large study: ``n_trials`` trials of ``n_epochs`` epochs each, one transaction."""
+    """A large study: ``n_trials`` trials, complete and failed ones of ``n_epochs`` epochs, pruned ones
+    of 5 to ``n_epochs - 1``; max_epochs is ``n_epochs``. Written in one transaction."""
     rng = np.random.default_rng(seed)
-    tracker.save_study(make_study(name), make_dataset())
+    spec_text = SPEC_TEXT.replace(f"max_epochs = {MAX_EPOCHS}", f"max_epochs = {n_epochs}")
+    tracker.save_study(make_study(name, spec_text), make_dataset())
     tracker.record_baselines([BaselineRecord(study=name, name="har", window="valid", objective=0.3,
                                              losses={"qlike": 0.3}, params={}, forecasts=np.zeros((3, 2)))])
     states = rng.choice(["complete", "pruned", "failed"], size=n_trials, p=[0.6, 0.35, 0.05])
@@ -145,6 +147,7 @@ def write_many(tracker: Tracker, name: str, n_trials: int, n_epochs: int, *, see
             objective = None if state == "failed" else float(0.2 + 0.1 * abs(np.log(hidden / 12)) + 0.1 * dropout
                                                              + 0.02 * rng.standard_normal())
             gap = None if state == "failed" else float(0.001 * hidden + 0.02 * dropout)
-            record = make_trial(name, number, state, objective, n_epochs, n_epochs // 2, hidden, dropout, gap,
+            epochs = int(rng.integers(5, n_epochs)) if state == "pruned" else n_epochs
+            record = make_trial(name, number, state, objective, epochs, epochs // 2, hidden, dropout, gap,
                                 float(rng.uniform(1, 10)), batch_size=int(rng.choice([32, 64])))
             tracker.record_trial(record)

@@ -353,11 +353,16 @@ def test_board_of_2000_trials_is_small_and_quick(tmp_path):
     path = write_study_board(record, out=tmp_path / "big.html")
     seconds = time.perf_counter() - start
     size = path.stat().st_size
-    print(f"\nboard of 2000 trials x 50 epochs: {seconds:.2f} s, {size / 1e6:.2f} MB")
+    print(f"\nboard of 2000 trials (50 epochs each, pruned ones 5-49): {seconds:.2f} s, {size / 1e6:.2f} MB")
     assert size < 10_000_000
     assert seconds < 60  # a guard against a hang, not a speed target
     html = path.read_text(encoding="utf-8")
     assert len(re.findall(r'<tr data-state="(?:complete|pruned|failed)"', html)) == 2000
-    # curves of the 8 best complete trials only: 2 lines each plus a best-epoch marker
     with Tracker.open(record, create=False) as t:
-        assert len(collect_board(t).curves) == 8
+        data = collect_board(t)
+    # curves of the 8 best complete trials only
+    assert len(data.curves) == 8
+    # max_epochs 50 from the spec; every pruned trial stopped before it
+    assert data.epochs["max_epochs"] == 50 and data.epochs["n_saved"] > 0
+    epochs_figure = dict((i, f) for i, _, f in build_figures(data))["fig-epochs"]
+    assert {trace.type for trace in epochs_figure.data} == {"scatter"}  # points, not 2000 bars
