@@ -266,6 +266,12 @@ def write_board(data: BoardData, figures, path: str | Path) -> Path:
     Raises:
         BoardError: the folder of ``path`` does not exist, or ``path`` is a folder.
     """
+    path = _checked_out(path)
+    path.write_text(render_board(data, figures), encoding="utf-8")
+    return path
+
+
+def _checked_out(path: str | Path) -> Path:
     path = Path(path)
     if path.is_dir():
         raise BoardError(f"cannot write the board to {path}: it is a folder; give a file name such as "
@@ -273,7 +279,6 @@ def write_board(data: BoardData, figures, path: str | Path) -> Path:
     if not path.parent.is_dir():
         raise BoardError(f"cannot write the board to {path}: folder {path.parent} does not exist; "
                          "create it first or choose another -o FILE")
-    path.write_text(render_board(data, figures), encoding="utf-8")
     return path
 
 
@@ -301,7 +306,7 @@ def write_study_board(record_path: str | Path, *, study: str | None = None, out:
     """
     from sweep.tracker import Tracker
 
-    out = default_board_path(record_path) if out is None else Path(out)
+    out = _checked_out(default_board_path(record_path) if out is None else out)
     tracker = Tracker.open(record_path, create=False)
     try:
         if command is None:

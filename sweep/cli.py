@@ -502,7 +502,7 @@ def diff(
 def board(
     db: DbArg,
     study: StudyOpt = None,
-    out_file: Annotated[Optional[Path], typer.Option("-o", "--out", help="The HTML file to write (default: beside the record, NAME-board.html).")] = None,
+    out_file: Annotated[Optional[Path], typer.Option("-o", "--out", help="The HTML file to write (default: beside the record, X.sqlite -> X-board.html).")] = None,
 ) -> None:
     """Write a study's board: one static HTML file that opens offline."""
     from sweep.board import write_study_board
