@@ -361,12 +361,12 @@ def collect_epochs(trials, spec) -> dict:
 # ---------------------------------------------------------------------------------------- review
 
 
-def collect_review(tracker, study: str) -> dict:
+def collect_review(tracker, study: str, *, objective: str | None = None) -> dict:
     """Notes, confirmations and holdout results, as plain dicts with their dates.
 
     Each holdout gets ``n_uses`` (how many holdout results the study holds: the number of times the
     test window was used) and ``repeat`` (True for every look after the first, or one recorded with
-    ``again``).
+    ``again``). Holdout ``metrics`` list the study's ``objective`` first, then the others by name.
     """
     notes = [{"created": n.created, "trial": n.trial, "author": n.author, "text": n.text}
              for n in tracker.load_notes(study)]
@@ -377,7 +377,8 @@ def collect_review(tracker, study: str) -> dict:
     n_uses = len(holdouts)
     looks = []
     for h in holdouts:
-        metrics = sorted({m for v in h.results.values() if isinstance(v, dict) for m in v})
+        metrics = sorted({m for v in h.results.values() if isinstance(v, dict) for m in v},
+                         key=lambda m: (m != objective, m))  # the study's objective first
         looks.append({"sequence": h.sequence, "trial": h.trial, "created": h.created, "command": h.command,
                       "again": h.again, "results": h.results, "metrics": metrics, "n_uses": n_uses,
                       "repeat": bool(h.again or (h.sequence or 1) > 1)})

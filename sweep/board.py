@@ -135,7 +135,7 @@ def collect_board(tracker, study: str | None = None, *, command: str | None = No
     rows, settings, kinds = collect_rows(record, spec, trials, baselines)
     epochs = collect_epochs(trials, spec)
     header = collect_header(record, dataset, spec, spec_problem, trials, rows, epochs)
-    review = collect_review(tracker, record.name)
+    review = collect_review(tracker, record.name, objective=record.objective)
     return BoardData(
         header=header,
         rows=rows,
@@ -167,7 +167,7 @@ def _fmt(value, digits: int = 4) -> str:
             return "–"
         return f"{value:.{digits}g}"
     if isinstance(value, (list, tuple)):
-        return ", ".join(_fmt(v, digits) for v in value)
+        return ", ".join(f"[{_fmt(v, digits)}]" if isinstance(v, (list, tuple)) else _fmt(v, digits) for v in value)
     if isinstance(value, dict):
         return "; ".join(f"{k} {_fmt(v, digits)}" for k, v in value.items())
     return str(value)

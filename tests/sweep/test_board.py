@@ -226,7 +226,8 @@ def test_collect_board_review_holds_notes_confirmations_and_every_holdout(tracke
     assert [n["created"] for n in review["notes"]] == ["2026-02-01T09:00:00+00:00"]
     assert review["confirmations"][0]["objectives"] == [0.21, 0.22]
     assert [(h["sequence"], h["repeat"], h["n_uses"]) for h in review["holdouts"]] == [(1, False, 2), (2, True, 2)]
-    assert review["holdouts"][0]["metrics"] == ["mse_log", "qlike"]
+    # the study's objective (qlike) first, then the other metrics by name
+    assert review["holdouts"][0]["metrics"] == ["qlike", "mse_log"]
 
 
 def test_collect_board_unknown_study_names_the_studies(tracker):
@@ -293,10 +294,13 @@ def test_render_board_shows_the_chosen_trial_section_with_repeat_flags(tracker):
     assert page.count("section", id="chosen") == 1
     chosen = page.text_by_id["chosen"]
     assert "Test window used 2 times" in chosen and "repeat: test window used 2 times" in chosen
-    for date in ("2026-02-01T09:00:00+00:00", "2026-02-01T10:00:00+00:00", "2026-02-02T10:00:00+00:00",
-                 "2026-02-03T10:00:00+00:00"):
+    # each record's date, shown in UTC (the machine-readable ISO text sits in <time datetime=...>)
+    for date in ("2026-02-01 09:00:00 UTC", "2026-02-01 10:00:00 UTC", "2026-02-02 10:00:00 UTC",
+                 "2026-02-03 10:00:00 UTC"):
         assert date in chosen
+    assert page.count("time", datetime="2026-02-03T10:00:00+00:00") == 1
     assert "Trial 1 chosen: beats HAR." in chosen
+    assert "[3, 101], [3, 102]" in chosen  # seeds of the confirmation, one [study seed, n] pair each
 
 
 def test_render_board_escapes_every_user_string():
