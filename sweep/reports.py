@@ -11,7 +11,7 @@ import pandas as pd
 
 from sweep.engine import _load_price_data
 from sweep.inputs import build_study_dataset, compute_baselines, prepare_inputs
-from sweep.ranking import rank_rows
+from sweep.ranking import rank_rows, trial_row
 from sweep.tracker import Tracker
 from trainers import volatility
 from trainers.data import PriceFileError, load_prices
@@ -152,21 +152,10 @@ def show_report(tracker: Tracker, number: int, *, study=None) -> dict:
             "last_date": dataset.last_date,
         },
         "trial": {
-            "trial": t.number,
-            "state": t.state,
-            "params": t.params,
+            **trial_row(t),
             "seed": t.seed,
-            "objective": t.objective,
-            "train_loss": t.train_loss,
-            "valid_loss": t.valid_loss,
-            "gap": t.gap,
-            "gap_ratio": t.gap_ratio,
-            "best_epoch": t.best_epoch,
-            "epochs": t.n_epochs,
-            "stop_reason": t.stop_reason,
             "started": t.started,
             "finished": t.finished,
-            "seconds": t.seconds,
             "error": t.error,
             "worker": t.worker,
             "curve": [
