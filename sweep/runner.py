@@ -13,14 +13,9 @@ from sweep.engine import RunSummary, default_record_path, run_study
 from sweep.objective import TrialOutcome
 from sweep.spec import load_spec
 
-__all__ = ["run_with_progress", "board_path_for"]
+__all__ = ["run_with_progress"]
 
 N_TOP = 5
-
-
-def board_path_for(record_path: Path) -> Path:
-    """`studies/x.sqlite` -> `studies/x-board.html`."""
-    return record_path.with_name(record_path.stem + "-board.html")
 
 
 def _status(counts: dict, best) -> str:
@@ -63,13 +58,11 @@ def run_with_progress(study_file: Path, *, trials=None, workers=None, db=None, s
         progress.update(task, completed=sum(summary.counts.values()), status=_status(summary.counts, summary.best))
     _print_summary(console, summary)
     if write_board:
-        try:
-            from sweep.board import write_study_board
-        except ImportError:
-            write_study_board = None
-        if write_study_board is not None:
-            path = write_study_board(record_path, study=spec.study.name, out=board_path_for(record_path))
-            console.print(f"board: {path}")
+        from sweep.board import default_board_path, write_study_board
+
+        path = write_study_board(record_path, study=spec.study.name, out=default_board_path(record_path),
+                                 command=f"volsweep run {study_file}")
+        console.print(f"board: {path}")
     return summary
 
 
