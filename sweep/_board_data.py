@@ -373,6 +373,12 @@ def collect_review(tracker, study: str, *, objective: str | None = None) -> dict
     confirmations = [{"created": c.created, "trial": c.trial, "seeds": c.seeds, "objectives": c.objectives,
                       "gaps": c.gaps, "summary": c.summary, "extra": c.extra}
                      for c in tracker.load_confirmations(study)]
+    # one sentence per confirm run (its confirmations share `created`): does the ranking hold?
+    rankings = []
+    for c in confirmations:
+        words = (c["extra"] or {}).get("ranking", {}).get("words")
+        if words and all(r["created"] != c["created"] for r in rankings):
+            rankings.append({"created": c["created"], "words": words})
     holdouts = tracker.load_holdouts(study)
     n_uses = len(holdouts)
     looks = []
@@ -383,7 +389,8 @@ def collect_review(tracker, study: str, *, objective: str | None = None) -> dict
                       "again": h.again, "results": h.results, "metrics": metrics, "n_uses": n_uses,
                       "repeat": bool(h.again or (h.sequence or 1) > 1)})
     comparisons, n_comparisons = collect_comparisons(tracker, study)
-    return {"notes": notes, "confirmations": confirmations, "holdouts": looks, "n_holdouts": n_uses,
+    return {"notes": notes, "confirmations": confirmations, "rankings": rankings, "holdouts": looks,
+            "n_holdouts": n_uses,
             "comparisons": comparisons, "n_comparisons": n_comparisons}
 
 

@@ -264,3 +264,14 @@ def test_board_shows_the_latest_comparison_per_window(record, tmp_path):
     assert "Forecast comparisons" in page
     assert latest["mcs"]["words"] in page and on_test["spa"]["words"] in page
     assert latest["dm"][0]["words"] in page
+
+
+def test_board_says_whether_the_ranking_holds_after_confirm(record, tmp_path):
+    from sweep import review
+    from sweep.board import collect_board
+
+    tracker = Tracker.open(copy_record(record, tmp_path), create=False)
+    report = review.confirm_trials(tracker, top=2, n_seeds=2)
+    data = collect_board(tracker, STUDY)
+    # one sentence per confirm run, the one confirm_trials printed
+    assert [r["words"] for r in data.review["rankings"]] == [report["ranking"]["words"]]
