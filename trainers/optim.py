@@ -4,7 +4,7 @@ Both optimizers work in place on a parameter array of shape (P,) or (K, P) (K st
 a gradient array of the same shape; their state arrays have that shape too. ``plan(params, grads)``
 returns the update as a short list of numpy calls bound to those buffers (Adam: 10, SGD with momentum:
 4, plus 2 for weight decay), so the training loop runs a step without allocating; ``step`` is the
-one-off form.
+one-off form. Adam uses the gradient buffer as its scratch space, so it leaves ``grads`` overwritten.
 
 Weight decay convention (L2 penalty, not decoupled): the objective is
 ``loss + weight_decay / 2 * ||W||^2`` over the weights W (``decay_mask`` = 1), never the biases
@@ -68,7 +68,7 @@ class _Optimizer:
         return [self.advance] + self._decay_ops(params, grads) + self._update_ops(params, grads)
 
     def step(self, params: np.ndarray, grads: np.ndarray) -> None:
-        """Update ``params`` in place from ``grads`` (``grads`` is overwritten when weight decay is on)."""
+        """Update ``params`` in place from ``grads`` (Adam always overwrites ``grads``; SGD when weight decay is on)."""
         for op in self.plan(params, grads):
             op()
 
@@ -150,12 +150,13 @@ class Adam(_Optimizer):
         self._eps_t[()] = self.eps / r
 
     def _update_ops(self, params, grads) -> list:
-        m, v, tmp = self.m_sum, self.v_sum, self._tmp
-        return [partial(np.multiply, m, self.beta1, m), partial(np.add, m, grads, m),
-                partial(np.multiply, v, self.beta2, v), partial(np.multiply, grads, grads, tmp),
-                partial(np.add, v, tmp, v), partial(np.sqrt, v, tmp), partial(np.add, tmp, self._eps_t, tmp),
-                partial(np.divide, m, tmp, tmp), partial(np.multiply, tmp, self._step_size, tmp),
-                partial(np.subtract, params, tmp, params)]
+        # once m holds the gradient, the gradient buffer is the scratch space: one (K, P) array fewer to stream
+        m, v, g = self.m_sum, self.v_sum, grads
+        return [partial(np.multiply, m, self.beta1, m), partial(np.add, m, g, m),
+                partial(np.multiply, v, self.beta2, v), partial(np.square, g, g),
+                partial(np.add, v, g, v), partial(np.sqrt, v, g), partial(np.add, g, self._eps_t, g),
+                partial(np.divide, m, g, g), partial(np.multiply, g, self._step_size, g),
+                partial(np.subtract, params, g, params)]
 
 
 def make_optimizer(train_config, shape: tuple[int, ...], dtype, decay_mask: np.ndarray | None = None) -> _Optimizer:
