@@ -209,11 +209,16 @@ def collect_progress(trials, direction: str = "minimize") -> list[dict]:
 
 
 def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURVES) -> list[dict]:
-    """Learning curves of the ``n_curves`` best complete trials (loaded for those trials only)."""
+    """Learning curves of the ``n_curves`` best complete trials (loaded for those trials only).
+
+    With walk-forward folds, the curve of the latest fold: the network a holdout or a forecast uses.
+    """
     best = [r for r in rows if r["kind"] == "trial" and r["state"] == "complete" and _finite(r["objective"])]
     curves = []
     for rank, row in enumerate(best[:n_curves], start=1):
         epochs = tracker.load_trial(study, row["trial"]).epochs
+        last_fold = max((e.fold for e in epochs), default=0)
+        epochs = [e for e in epochs if e.fold == last_fold]
         curves.append({
             "trial": row["trial"], "rank": rank, "objective": row["objective"], "best_epoch": row["best_epoch"],
             "epoch": [e.epoch for e in epochs], "train_loss": [e.train_loss for e in epochs],
@@ -347,7 +352,10 @@ def collect_epochs(trials, spec) -> dict:
     """Epochs used per trial, and the share pruning saved (see ``saved_share``)."""
     per_trial = [{"trial": t.number, "state": t.state, "epochs": t.n_epochs}
                  for t in sorted(trials, key=lambda t: t.number)]
-    if spec is not None:
+    if spec is not None and spec.split.folds:
+        max_epochs = spec.training.max_epochs * spec.split.folds
+        source = "training.max_epochs times split.folds of the study file"
+    elif spec is not None:
         max_epochs, source = spec.training.max_epochs, "training.max_epochs of the study file"
     else:
         max_epochs = max((t["epochs"] for t in per_trial), default=0)

@@ -127,6 +127,7 @@ def row_epoch(row: dict) -> EpochRow:
         valid_loss=_nan_if_null(row["valid_loss"]),
         valid_score=row["valid_score"],
         seconds=_nan_if_null(row["seconds"]),
+        fold=row.get("fold") or 0,
     )
 
 

@@ -52,8 +52,8 @@ CREATE TABLE IF NOT EXISTS vs_trials (
     worker TEXT, PRIMARY KEY (study, number));
 CREATE INDEX IF NOT EXISTS vs_trials_state ON vs_trials (study, state);
 CREATE TABLE IF NOT EXISTS vs_epochs (
-    {_TRIAL_KEY}, epoch INTEGER NOT NULL, train_loss REAL, valid_loss REAL, valid_score REAL,
-    seconds REAL, PRIMARY KEY (study, number, epoch), {_TRIAL_FK});
+    {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
+    valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});
 CREATE TABLE IF NOT EXISTS vs_forecasts (
     {_TRIAL_KEY}, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
     PRIMARY KEY (study, number), {_TRIAL_FK});

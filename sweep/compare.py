@@ -25,6 +25,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sweep.inputs import window_rows
 from sweep.forecast import ReviewError, network_for, open_study, ranked_complete, window_forecasts
 from sweep.inputs import FORECAST_FLOOR
 from sweep.records import COMPARISON_WINDOWS, ComparisonRecord, utc_now
@@ -41,13 +42,17 @@ def percent(level: float) -> str:
     return f"{100 * level:g} %"
 
 
-def row_losses(inputs, window: str, forecasts: np.ndarray) -> tuple[np.ndarray, dict[int, np.ndarray]]:
-    """The objective's loss per row: the all-horizons mean (n,) and, for regression, one series per horizon."""
+def row_losses(inputs, window: str, forecasts: np.ndarray, rows=None) -> tuple[np.ndarray, dict[int, np.ndarray]]:
+    """The objective's loss per row: the all-horizons mean (n,) and, for regression, one series per horizon.
+
+    ``rows`` (``sweep.inputs.window_rows``) gives the window's truth when it spans several folds.
+    """
+    truth_rows = inputs.truth[window] if rows is None else rows.truth
     if inputs.task == "classification":
-        labels = inputs.labels[window]
+        labels = inputs.labels[window] if rows is None else rows.labels
         p = np.clip(forecasts[np.arange(labels.size), labels], np.finfo(np.float64).eps, 1.0)
         return -2.0 * np.log(p), {}
-    truth = np.maximum(inputs.truth[window], FORECAST_FLOOR)
+    truth = np.maximum(truth_rows, FORECAST_FLOOR)
     forecasts = np.maximum(np.asarray(forecasts, dtype=np.float64), FORECAST_FLOOR)
     name = inputs.objective
     per_h = {h: metrics.loss_series(name, truth[:, j], forecasts[:, j]) for j, h in enumerate(inputs.horizons)}
@@ -158,12 +163,13 @@ def compare_forecasts(tracker, *, study: str | None = None, window: str = "valid
         raise ReviewError(f"study {ctx.name!r} has no baselines on the {window} window to compare against")
     seed = int(ctx.spec.study.seed if seed is None else seed)
     inputs, sources = ctx.inputs, {}
+    rows = window_rows(ctx.all_folds, window)
     losses, per_h = {}, {}
     for t in trials:
-        losses[trial_key(t.number)], per_h[trial_key(t.number)] = row_losses(inputs, window,
-                                                                            _forecasts(ctx, t, window, sources))
+        losses[trial_key(t.number)], per_h[trial_key(t.number)] = row_losses(
+            inputs, window, _forecasts(ctx, t, window, sources), rows)
     for b in baselines:
-        losses[b.name], per_h[b.name] = row_losses(inputs, window, b.forecasts)
+        losses[b.name], per_h[b.name] = row_losses(inputs, window, b.forecasts, rows)
     finalists = [trial_key(t.number) for t in trials[:top]]
     names = [b.name for b in baselines]
     longest = max(inputs.horizons) if inputs.task == "regression" else inputs.horizons[0]
@@ -180,7 +186,7 @@ def compare_forecasts(tracker, *, study: str | None = None, window: str = "valid
         spa = _spa(BENCHMARK, losses[BENCHMARK], all_trials, level, reps, seed)
     else:
         spa_skipped = f"no {BENCHMARK!r} baseline on the {window} window (baselines: {', '.join(names)})"
-    dates = inputs.dates(window)
+    dates = rows.dates
     results = {
         "study": ctx.name, "window": window, "objective": ctx.record.objective, "level": level,
         "rows": int(len(dates)), "first_date": dates[0].date().isoformat(), "last_date": dates[-1].date().isoformat(),

@@ -24,7 +24,7 @@ from optuna.storages.journal._file import get_lock_file
 from optuna.trial import TrialState
 
 from sweep.errors import VolsweepError
-from sweep.inputs import StudyInputs, compute_baselines, prepare_inputs
+from sweep.inputs import StudyInputs, compute_baselines, prepare_folds
 from sweep.objective import TrialOutcome, run_trial, trial_seed
 from sweep.provenance import collect_provenance
 from sweep.pruning import PruningView
@@ -44,6 +44,7 @@ __all__ = [
     "make_pruner",
     "run_study",
     "inputs_from_record",
+    "folds_from_record",
     "spec_from_record",
 ]
 
@@ -156,12 +157,18 @@ def spec_from_record(study: StudyRecord) -> StudySpec:
     return spec.with_name(study.name) if spec.study.name != study.name else spec
 
 
-def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, StudyInputs]:
-    """Rebuild a study's spec and arrays from the record alone (no price file needed)."""
+def folds_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, list[StudyInputs]]:
+    """Rebuild a study's spec and the arrays of every fold from the record alone (no price file needed)."""
     spec = spec_from_record(study)
     dataset = tracker.load_dataset(study.dataset_sha256)
     frame = read_prices_csv_text(dataset.csv_text)
-    return spec, prepare_inputs(spec, frame)
+    return spec, prepare_folds(spec, frame)
+
+
+def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, StudyInputs]:
+    """The spec and the final model's arrays (the single split, or the latest fold) from the record."""
+    spec, folds = folds_from_record(tracker, study)
+    return spec, folds[-1]
 
 
 def _min_rows(spec: StudySpec) -> int:
@@ -173,12 +180,6 @@ def _min_rows(spec: StudySpec) -> int:
     return look_back + max(spec.target.horizons) + 3 * spec.split.embargo + 30
 
 
-def _check_runnable(spec: StudySpec) -> None:
-    if spec.split.folds:
-        raise VolsweepError(
-            f"split.folds = {spec.split.folds}: walk-forward folds are checked in the study file but "
-            "this version of the sweep runs one chronological split; set split.folds = 0"
-        )
 
 
 def _load_price_data(spec: StudySpec):
@@ -193,8 +194,8 @@ def _load_price_data(spec: StudySpec):
         raise DataError(f"{exc}\nfix the file, or set data.bad_rows = \"drop\" to drop bad rows") from exc
 
 
-def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: str) -> StudyInputs:
-    inputs = prepare_inputs(spec, price_data.frame)
+def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: str) -> None:
+    folds = prepare_folds(spec, price_data.frame)
     frame = price_data.frame
     dataset = DatasetRecord(
         sha256=price_data.sha256,
@@ -219,7 +220,7 @@ def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: st
         storage=storage_url,
         sampler=spec.search.sampler,
         pruner=spec.search.pruner,
-        settings={"windows": {w: len(getattr(inputs.windows, w)) for w in ("train", "valid", "test")}},
+        settings=_window_settings(folds),
         **prov,
     )
     baselines = [
@@ -232,11 +233,19 @@ def _create_study(tracker: Tracker, spec: StudySpec, price_data, storage_url: st
             params=b.params,
             forecasts=b.forecasts,
         )
-        for b in compute_baselines(spec, inputs)
+        for b in compute_baselines(spec, folds)
     ]
     tracker.save_study(study, dataset)
     tracker.record_baselines(baselines)
-    return inputs
+
+
+def _window_settings(folds: list[StudyInputs]) -> dict:
+    """Rows per window, as the board's header shows them; with folds, every fold's too."""
+    sizes = [{w: len(getattr(f.windows, w)) for w in ("train", "valid", "test")} for f in folds]
+    if len(sizes) == 1:
+        return {"windows": sizes[0]}
+    return {"windows": {"train": sizes[-1]["train"], "valid": sum(s["valid"] for s in sizes),
+                        "test": sizes[-1]["test"]}, "folds": sizes}
 
 
 def _check_unchanged(old: StudyRecord, spec: StudySpec, sha256: str) -> None:
@@ -315,16 +324,16 @@ def _limit_threads():
 def _worker_loop(plan: _WorkerPlan, claim: Callable[[], bool], stop, report) -> None:
     tracker = Tracker.open(plan.record_path, create=False)
     study_record = tracker.find_study(plan.study_name)
-    spec, inputs = inputs_from_record(tracker, study_record)
+    spec, folds = folds_from_record(tracker, study_record)
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     study = optuna.load_study(
         study_name=plan.study_name,
         storage=open_storage(plan.storage_url),
         sampler=make_sampler(spec, plan.worker),
     )
-    view = PruningView(make_pruner(spec))
+    view = PruningView(make_pruner(spec), epochs_per_fold=spec.training.max_epochs)
     while not stop.is_set() and claim():
-        outcome = run_trial(study, spec, inputs, tracker, view, stop=stop)
+        outcome = run_trial(study, spec, folds, tracker, view, stop=stop)
         report(outcome)
         if outcome.state == "interrupted":
             raise KeyboardInterrupt
@@ -378,7 +387,6 @@ def run_study(
         DataError, StudyChanged: nothing is run or written in those cases.
     """
     t0 = time.perf_counter()
-    _check_runnable(spec)
     record_path = Path(record_path)
     storage_url = storage or str(default_storage_path(record_path))
     n_target = int(n_trials if n_trials is not None else spec.study.trials)

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from sweep.engine import inputs_from_record
+from sweep.engine import folds_from_record
 from sweep.errors import VolsweepError
 from sweep.inputs import StudyInputs, feature_config
 from sweep.objective import train_params
@@ -43,6 +43,7 @@ __all__ = [
     "open_study",
     "ranked_complete",
     "retrain_trial",
+    "retrain_folds",
     "network_for",
     "network_forecasts",
     "window_forecasts",
@@ -65,18 +66,23 @@ class StudyContext:
     tracker: object
     record: StudyRecord
     spec: object
-    inputs: StudyInputs
+    inputs: StudyInputs          # the final model's arrays: the single split, or the latest fold
+    folds: tuple = ()            # every fold's arrays, oldest first (empty: `inputs` is the only one)
 
     @property
     def name(self) -> str:
         return self.record.name
 
+    @property
+    def all_folds(self) -> tuple:
+        return self.folds or (self.inputs,)
+
 
 def open_study(tracker, study: str | None) -> StudyContext:
     """Find the study (``None``: the file's only study) and rebuild its spec and arrays from the record."""
     record = tracker.find_study(study)
-    spec, inputs = inputs_from_record(tracker, record)
-    return StudyContext(tracker=tracker, record=record, spec=spec, inputs=inputs)
+    spec, folds = folds_from_record(tracker, record)
+    return StudyContext(tracker=tracker, record=record, spec=spec, inputs=folds[-1], folds=tuple(folds))
 
 
 def one_blas_thread():
@@ -94,11 +100,13 @@ def ranked_complete(trials: list[TrialRecord]) -> list[TrialRecord]:
     return sorted(done, key=lambda t: (t.objective, t.number))
 
 
-def retrain_trial(ctx: StudyContext, trial: TrialRecord) -> FitResult:
-    """Train the trial again from its recorded settings and seed, stopping at its recorded epoch count.
+def retrain_folds(ctx: StudyContext, trial: TrialRecord) -> list[FitResult]:
+    """Train the trial again from its recorded settings and seed, fold by fold, stopping each fold at
+    its recorded epoch count.
 
-    A pruned (or interrupted) trial stops where the record says it stopped; a finished one runs until it
-    stops by itself, which on the same machine is the same epoch.
+    A pruned (or interrupted) trial stops where the record says it stopped (folds it never reached
+    are not trained); a finished one runs until it stops by itself, which on the same machine is the
+    same epoch.
 
     Raises:
         ReviewError: the trial has no recorded epochs (it failed before training).
@@ -108,12 +116,25 @@ def retrain_trial(ctx: StudyContext, trial: TrialRecord) -> FitResult:
             f"trial {trial.number} of study {ctx.name!r} has no recorded epochs (state {trial.state}); "
             "it failed before training, so there is nothing to retrain; pick another trial (see `volsweep top`)"
         )
+    per_fold = [sum(1 for e in trial.epochs if e.fold == k) for k in range(len(ctx.all_folds))]
+    if len(ctx.all_folds) == 1:
+        per_fold = [trial.n_epochs]
+    results = []
     with one_blas_thread():
-        run = train_params(ctx.spec, ctx.inputs, trial.params, trial.seed)
-        for epoch in run:
-            if epoch.index >= trial.n_epochs:
+        for inputs, n_epochs in zip(ctx.all_folds, per_fold):
+            if n_epochs < 1:
                 break
-        return run.result()
+            run = train_params(ctx.spec, inputs, trial.params, trial.seed)
+            for epoch in run:
+                if epoch.index >= n_epochs:
+                    break
+            results.append(run.result())
+    return results
+
+
+def retrain_trial(ctx: StudyContext, trial: TrialRecord) -> FitResult:
+    """The retrained network of the trial's last fold run (the only one for a single split)."""
+    return retrain_folds(ctx, trial)[-1]
 
 
 def network_for(ctx: StudyContext, trial: TrialRecord) -> tuple[Network, str]:

@@ -21,12 +21,20 @@ from trainers.features import (
     regime_labels,
     regime_thresholds,
 )
-from trainers.splits import Scaler, Windows, fit_scaler, split_by_dates, split_by_fraction
+from trainers.splits import Scaler, Windows, fit_scaler, split_by_dates, split_by_fraction, walk_forward
 
 __all__ = [
     "WINDOW_NAMES",
     "StudyInputs",
     "prepare_inputs",
+    "prepare_folds",
+    "split_windows",
+    "valid_truth",
+    "valid_labels",
+    "valid_dates",
+    "fold_mean",
+    "WindowRows",
+    "window_rows",
     "score_forecasts",
     "compute_baselines",
 ]
@@ -131,18 +139,22 @@ def score_forecasts(objective: str, truth: np.ndarray, forecast: np.ndarray) -> 
     )
 
 
-def _split(spec, dataset: Dataset) -> Windows:
+def split_windows(spec, dataset: Dataset) -> list[Windows]:
+    """The study's windows: one chronological split, or one Windows per walk-forward fold.
+
+    With `split.folds = K`, `split.valid` is the share of rows in all K validation blocks together,
+    cut into K equal blocks back to back; every fold keeps the same final test window.
+    """
     split = spec.split
+    n_rows = len(dataset.dates)
+    if split.folds:
+        valid_size = int(split.valid * n_rows) // split.folds
+        return walk_forward(n_rows, n_folds=split.folds, valid_size=valid_size, embargo=split.embargo,
+                            expanding=split.expanding, test=split.test)
     if split.valid_start is not None:
-        return split_by_dates(
-            dataset.dates,
-            valid_start=split.valid_start,
-            test_start=split.test_start,
-            embargo=split.embargo,
-        )
-    return split_by_fraction(
-        len(dataset.dates), valid=split.valid, test=split.test, embargo=split.embargo
-    )
+        return [split_by_dates(dataset.dates, valid_start=split.valid_start, test_start=split.test_start,
+                               embargo=split.embargo)]
+    return [split_by_fraction(n_rows, valid=split.valid, test=split.test, embargo=split.embargo)]
 
 
 def feature_config(spec) -> FeatureConfig:
@@ -171,18 +183,27 @@ def build_study_dataset(spec, frame: pd.DataFrame) -> Dataset:
     )
 
 
-def prepare_inputs(spec, frame: pd.DataFrame) -> StudyInputs:
-    """Build every array a study needs from its spec and its validated price frame.
+def prepare_folds(spec, frame: pd.DataFrame) -> list[StudyInputs]:
+    """Every array a study trains on, one StudyInputs per fold (one for a single split).
 
     Args:
         spec: a `sweep.spec.StudySpec`.
         frame: the price frame (DatetimeIndex, open/high/low/close and extra columns).
 
     Returns:
-        StudyInputs with scaled inputs and targets per window.
+        A list of StudyInputs, oldest fold first; each fold's scaling is fitted on its own
+        training window.
     """
     dataset = build_study_dataset(spec, frame)
-    windows = _split(spec, dataset)
+    return [_inputs_for(spec, dataset, windows) for windows in split_windows(spec, dataset)]
+
+
+def prepare_inputs(spec, frame: pd.DataFrame) -> StudyInputs:
+    """The arrays of the study's final model: the single split, or the latest walk-forward fold."""
+    return prepare_folds(spec, frame)[-1]
+
+
+def _inputs_for(spec, dataset: Dataset, windows: Windows) -> StudyInputs:
     X_all = dataset.X.to_numpy(dtype=np.float64)
     log = spec.target.scale == "log"
     y_target = dataset.y.to_numpy(dtype=np.float64)
@@ -220,6 +241,39 @@ def prepare_inputs(spec, frame: pd.DataFrame) -> StudyInputs:
 
 
 @dataclass(frozen=True)
+class WindowRows:
+    """The rows of one window across folds: level truth, class labels (classification) and dates."""
+
+    truth: np.ndarray
+    labels: np.ndarray | None
+    dates: pd.DatetimeIndex
+
+
+def window_rows(folds, window: str) -> WindowRows:
+    """The validation window spans every fold's block (oldest first, the rows of recorded validation
+    forecasts); the training and test windows are the latest fold's."""
+    folds = [folds] if isinstance(folds, StudyInputs) else list(folds)
+    if window != "valid" or len(folds) == 1:
+        last = folds[-1]
+        return WindowRows(last.truth[window], last.labels.get(window), last.dates(window))
+    labels = valid_labels(folds) if folds[-1].task == "classification" else None
+    return WindowRows(valid_truth(folds), labels, valid_dates(folds))
+
+
+def valid_truth(folds: list[StudyInputs]) -> np.ndarray:
+    """Level truth of every fold's validation block, oldest first (rows of the recorded forecasts)."""
+    return np.concatenate([f.truth["valid"] for f in folds])
+
+
+def valid_labels(folds: list[StudyInputs]) -> np.ndarray:
+    return np.concatenate([f.labels["valid"] for f in folds])
+
+
+def valid_dates(folds: list[StudyInputs]) -> pd.DatetimeIndex:
+    return folds[0].dates("valid").append([f.dates("valid") for f in folds[1:]])
+
+
+@dataclass(frozen=True)
 class BaselineScore:
     """One baseline's forecasts and losses on one window."""
 
@@ -241,56 +295,85 @@ def window_losses(truth: np.ndarray, forecast: np.ndarray) -> dict:
     return losses
 
 
-def compute_baselines(spec, inputs: StudyInputs) -> list[BaselineScore]:
-    """The classic benchmarks on the validation and test windows of a regression study."""
-    if inputs.task == "classification":
-        return _class_share_baseline(inputs)
-    fitted = forecast_baselines(
-        inputs.dataset,
-        inputs.windows,
-        horizons=inputs.horizons,
-        names=tuple(spec.baselines.include),
-        ewma_lambda=spec.baselines.ewma_lambda,
-        har_window=spec.baselines.har_window,
-        log=inputs.log,
-    )
+def compute_baselines(spec, folds) -> list[BaselineScore]:
+    """The classic benchmarks on the validation and test windows of a regression study.
+
+    Args:
+        spec: the study spec.
+        folds: the study's StudyInputs, one per fold (a single StudyInputs is one fold). Each fold's
+            baselines are fitted on its own training window; the validation forecasts of all folds
+            are concatenated, oldest first, like the trials'; the test window is forecast from the
+            latest fold.
+    """
+    folds = [folds] if isinstance(folds, StudyInputs) else list(folds)
+    if folds[-1].task == "classification":
+        return _class_share_baseline(folds)
+    fitted = [
+        forecast_baselines(
+            f.dataset,
+            f.windows,
+            horizons=f.horizons,
+            names=tuple(spec.baselines.include),
+            ewma_lambda=spec.baselines.ewma_lambda,
+            har_window=spec.baselines.har_window,
+            log=f.log,
+        )
+        for f in folds
+    ]
+    last = folds[-1]
     scores = []
-    for name, result in fitted.items():
-        all_forecasts = result.forecasts.to_numpy(dtype=np.float64)
+    for name, result in fitted[-1].items():
         for window in ("valid", "test"):
-            forecast = all_forecasts[getattr(inputs.windows, window)]
-            truth = inputs.truth[window]
+            if window == "valid":
+                parts = [(f.truth["valid"], fit[name].forecasts.to_numpy(dtype=np.float64)[f.windows.valid])
+                         for fit, f in zip(fitted, folds)]
+            else:
+                parts = [(last.truth["test"], result.forecasts.to_numpy(dtype=np.float64)[last.windows.test])]
             scores.append(
                 BaselineScore(
                     name=name,
                     window=window,
-                    objective=score_forecasts(inputs.objective, truth, forecast),
-                    losses=window_losses(truth, forecast),
+                    objective=fold_mean([score_forecasts(last.objective, t, f) for t, f in parts]),
+                    losses=_mean_dicts([window_losses(t, f) for t, f in parts]),
                     params=result.params,
-                    forecasts=forecast,
+                    forecasts=np.concatenate([f for _, f in parts]),
                 )
             )
     return scores
 
 
-def _class_share_baseline(inputs: StudyInputs) -> list[BaselineScore]:
-    """Predict the training window's class shares every day: the no-skill benchmark for regimes."""
+def fold_mean(values) -> float:
+    """A score over walk-forward folds: the mean of the folds' scores (the score itself for one split)."""
+    values = [float(v) for v in values]
+    return values[0] if len(values) == 1 else float(np.mean(values))
+
+
+def _mean_dicts(dicts: list[dict]) -> dict:
+    return {k: fold_mean([d[k] for d in dicts]) for k in dicts[0]}
+
+
+def _class_share_baseline(folds: list[StudyInputs]) -> list[BaselineScore]:
+    """Predict the latest training window's class shares every day: the no-skill benchmark for regimes."""
+    inputs = folds[-1]
     n_classes = inputs.n_outputs
     counts = np.bincount(inputs.labels["train"], minlength=n_classes).astype(np.float64)
     shares = (counts + 1.0) / (counts.sum() + n_classes)  # add-one so no class has probability 0
     scores = []
     for window in ("valid", "test"):
-        labels = inputs.labels[window]
-        proba = np.tile(shares, (len(labels), 1))
-        deviance = float(metrics.deviance(labels, proba))
+        blocks = [f.labels["valid"] for f in folds] if window == "valid" else [inputs.labels["test"]]
+        losses = _mean_dicts([
+            {"deviance": float(metrics.deviance(b, np.tile(shares, (len(b), 1)))),
+             "accuracy": float(metrics.accuracy(b, np.tile(shares, (len(b), 1))))}
+            for b in blocks
+        ])
         scores.append(
             BaselineScore(
                 name="class_shares",
                 window=window,
-                objective=deviance,
-                losses={"deviance": deviance, "accuracy": float(metrics.accuracy(labels, proba))},
+                objective=losses["deviance"],
+                losses=losses,
                 params={"shares": shares.tolist()},
-                forecasts=proba,
+                forecasts=np.tile(shares, (sum(len(b) for b in blocks), 1)),
             )
         )
     return scores

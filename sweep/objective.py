@@ -16,7 +16,7 @@ from datetime import datetime, timezone
 import numpy as np
 import optuna
 
-from sweep.inputs import StudyInputs
+from sweep.inputs import StudyInputs, fold_mean
 from sweep.records import EpochRow, TrialRecord
 from sweep.space import params_to_configs, suggest_params
 from trainers.fit import FitResult, train_mlp
@@ -81,11 +81,41 @@ def valid_forecasts(inputs: StudyInputs, result: FitResult) -> np.ndarray:
     return inputs.forecasts(raw)
 
 
-def _trial_record(spec, trial_number, params, seed, state, result, started, t0, error=None):
+def _aggregate(results: list[FitResult], state: str) -> dict:
+    """A trial's fields from its folds' results (one result for a single split).
+
+    Losses and the objective are means over the folds run (the fold's value itself for one split);
+    the best epoch and stop reason are those of the last fold run.
+    """
+    last = results[-1]
+    objective = [_finite_or_none(r.valid_score) for r in results]
+    train_loss = [_finite_or_none(r.train_loss) for r in results]
+    valid_loss = [_finite_or_none(r.valid_loss) for r in results]
+
+    def mean(values):
+        return None if any(v is None for v in values) else fold_mean(values)
+
+    fields = dict(
+        best_epoch=int(last.best_epoch),
+        n_epochs=sum(len(r.history) for r in results),
+        stop_reason="pruned" if state == "pruned" else last.stop_reason,
+        objective=mean(objective),
+        train_loss=mean(train_loss),
+        valid_loss=mean(valid_loss),
+    )
+    if len(results) == 1:
+        fields.update(gap=_finite_or_none(last.gap), gap_ratio=_finite_or_none(last.gap_ratio))
+    elif fields["train_loss"] is not None and fields["valid_loss"] is not None:
+        fields.update(gap=fields["valid_loss"] - fields["train_loss"],
+                      gap_ratio=_finite_or_none(fields["valid_loss"] / fields["train_loss"]))
+    return fields
+
+
+def _trial_record(spec, trial_number, params, seed, state, results, started, t0, error=None):
     epochs = ()
     fields = dict(best_epoch=0, n_epochs=0, stop_reason="error", objective=None,
                   train_loss=None, valid_loss=None, gap=None, gap_ratio=None)
-    if result is not None:
+    if results:
         epochs = tuple(
             EpochRow(
                 epoch=int(e.index),
@@ -93,19 +123,12 @@ def _trial_record(spec, trial_number, params, seed, state, result, started, t0, 
                 valid_loss=float(e.valid_loss),
                 valid_score=_finite_or_none(e.valid_score),
                 seconds=float(e.seconds),
+                fold=fold,
             )
+            for fold, result in enumerate(results)
             for e in result.history
         )
-        fields.update(
-            best_epoch=int(result.best_epoch),
-            n_epochs=len(result.history),
-            stop_reason="pruned" if state == "pruned" else result.stop_reason,
-            objective=_finite_or_none(result.valid_score),
-            train_loss=_finite_or_none(result.train_loss),
-            valid_loss=_finite_or_none(result.valid_loss),
-            gap=_finite_or_none(result.gap),
-            gap_ratio=_finite_or_none(result.gap_ratio),
-        )
+        fields.update(_aggregate(results, state))
     return TrialRecord(
         study=spec.study.name,
         number=int(trial_number),
@@ -122,16 +145,18 @@ def _trial_record(spec, trial_number, params, seed, state, result, started, t0, 
     )
 
 
-def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, stop=None) -> TrialOutcome:
-    """Ask the study for one trial, train it, record it, and tell the study how it ended.
+def run_trial(study: optuna.Study, spec, folds, tracker, view, *, stop=None) -> TrialOutcome:
+    """Ask the study for one trial, train it on every fold, record it, and tell the study how it ended.
 
     The record is written before optuna is told, so a trial optuna calls finished is always in the
-    record. A trial that raises is recorded as failed with its traceback; the sweep goes on.
+    record. A trial that raises is recorded as failed with its traceback; the sweep goes on. With
+    walk-forward folds the trial trains one network per fold with the same settings and seed, oldest
+    fold first; the pruner sees fold k's epochs as steps after those of the earlier folds.
 
     Args:
         study: the optuna study (any storage).
         spec: the `StudySpec`.
-        inputs: the study's arrays.
+        folds: the study's arrays, a list of StudyInputs (one per fold) or one StudyInputs.
         tracker: an open `Tracker` of the record.
         view: the worker's `PruningView`; the pruner decides on it after every epoch.
         stop: optional object with `is_set()`; when set, the trial is left at the next epoch,
@@ -140,36 +165,40 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
     Returns:
         A TrialOutcome for the progress display.
     """
+    folds = [folds] if isinstance(folds, StudyInputs) else list(folds)
     view.refresh(tracker, spec.study.name)
     trial = study.ask()
     started, t0 = _now(), time.perf_counter()
     seed = trial_seed(spec.study.seed, trial.number)
     params: dict = {}
-    result = None
+    results: list[FitResult] = []
     try:
         params = suggest_params(trial, spec.space)
-        run = train_params(spec, inputs, params, seed)
         state = "complete"
         view.start()
-        for epoch in run:
-            if epoch.valid_score is not None and np.isfinite(epoch.valid_score):
-                if view.should_prune(epoch.index, epoch.valid_score):
-                    state = "pruned"
+        for k, inputs in enumerate(folds):
+            run = train_params(spec, inputs, params, seed)
+            for epoch in run:
+                if epoch.valid_score is not None and np.isfinite(epoch.valid_score):
+                    if view.should_prune(view.step(k, epoch.index), epoch.valid_score):
+                        state = "pruned"
+                        break
+                if stop is not None and stop.is_set():
+                    state = "interrupted"
                     break
-            if stop is not None and stop.is_set():
-                state = "interrupted"
+            results.append(run.result())
+            if state != "complete":
                 break
-        result = run.result()
         if state == "interrupted":
             raise KeyboardInterrupt
-        if state == "complete" and _finite_or_none(result.valid_score) is None:
+        if state == "complete" and _finite_or_none(_aggregate(results, state)["objective"]) is None:
             raise FloatingPointError(
                 f"training diverged before any finite validation score (stop reason "
-                f"{result.stop_reason}); lower space.learning_rate or narrow its range"
+                f"{results[-1].stop_reason}); lower space.learning_rate or narrow its range"
             )
     except KeyboardInterrupt:
         view.finish(trial.number, "failed")
-        record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0,
+        record = _trial_record(spec, trial.number, params, seed, "failed", results, started, t0,
                                error="interrupted: the run was stopped before this trial finished")
         tracker.record_trial(record)
         trial.set_user_attr("interrupted", True)
@@ -180,22 +209,24 @@ def run_trial(study: optuna.Study, spec, inputs: StudyInputs, tracker, view, *, 
     except Exception:
         view.finish(trial.number, "failed")
         error = traceback.format_exc(limit=8)
-        record = _trial_record(spec, trial.number, params, seed, "failed", result, started, t0, error=error)
+        record = _trial_record(spec, trial.number, params, seed, "failed", results, started, t0, error=error)
         tracker.record_trial(record)
         trial.set_user_attr("error", error[-4000:])
         study.tell(trial, state=optuna.trial.TrialState.FAIL)
         return TrialOutcome(trial.number, "failed", None, record.seconds, error.strip().splitlines()[-1])
 
-    record = _trial_record(spec, trial.number, params, seed, state, result, started, t0)
+    record = _trial_record(spec, trial.number, params, seed, state, results, started, t0)
     view.finish(trial.number, state, record.objective)
-    forecasts = valid_forecasts(inputs, result) if result.best_epoch > 0 else None
-    weights = result.network.to_arrays() if state == "complete" else None
+    forecasts = None
+    if len(results) == len(folds) and all(r.best_epoch > 0 for r in results):
+        forecasts = np.concatenate([valid_forecasts(f, r) for f, r in zip(folds, results)])
+    weights = results[-1].network.to_arrays() if state == "complete" else None
     record = replace(record, valid_forecasts=forecasts, weights=weights)
     tracker.record_trial(record)
     if state == "pruned":
         # one intermediate value, so optuna's value of a pruned trial is the recorded objective
         if record.objective is not None:
-            trial.report(record.objective, record.n_epochs)
+            trial.report(record.objective, view.step(len(results) - 1, results[-1].epochs_run))
         study.tell(trial, state=optuna.trial.TrialState.PRUNED)
     else:
         study.tell(trial, record.objective)

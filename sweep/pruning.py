@@ -28,6 +28,8 @@ class PruningView:
     Args:
         pruner: an optuna pruner (the study's, from the spec).
         direction: "minimize" (volsweep's objectives are losses).
+        epochs_per_fold: with walk-forward folds, the steps of fold k are
+            `k * epochs_per_fold + epoch`, so trials are compared fold by fold, epoch by epoch.
 
     Example:
         >>> view = PruningView(optuna.pruners.MedianPruner(n_startup_trials=0))
@@ -36,12 +38,13 @@ class PruningView:
         False
     """
 
-    def __init__(self, pruner, direction: str = "minimize"):
+    def __init__(self, pruner, direction: str = "minimize", *, epochs_per_fold: int = 0):
         self._study = optuna.create_study(
             direction=direction, pruner=pruner, sampler=optuna.samplers.RandomSampler(seed=0)
         )
         self._seen: set[int] = set()
         self._trial = None
+        self.epochs_per_fold = int(epochs_per_fold)
         self._replay_rungs = isinstance(
             pruner, (optuna.pruners.SuccessiveHalvingPruner, optuna.pruners.HyperbandPruner)
         )
@@ -52,7 +55,7 @@ class PruningView:
         return len(self._seen)
 
     def add_finished(self, number: int, state: str, value: float | None, curve) -> None:
-        """Add one finished trial (complete or pruned) with its curve [(epoch, score), ...].
+        """Add one finished trial (complete or pruned) with its curve [(step, score), ...].
 
         The curve is replayed through the view so that rung-based pruners (halving, hyperband) keep
         the marks they would have left had the trial run in this process.
@@ -81,8 +84,13 @@ class PruningView:
             return 0
         curves = tracker.load_curves(study, [t.number for t in finished])
         for t in finished:
-            self.add_finished(t.number, t.state, t.objective, curves.get(t.number, ()))
+            curve = [(self.step(fold, epoch), score) for fold, epoch, score in curves.get(t.number, ())]
+            self.add_finished(t.number, t.state, t.objective, curve)
         return len(finished)
+
+    def step(self, fold: int, epoch: int) -> int:
+        """The pruner's step of an epoch of a fold."""
+        return int(fold) * self.epochs_per_fold + int(epoch)
 
     def start(self) -> None:
         """Begin the running trial's curve."""

@@ -179,16 +179,19 @@ class DatasetRecord:
 
 @dataclass(frozen=True)
 class EpochRow:
-    """One epoch of a trial's learning curve (``epoch`` is 1-based)."""
+    """One epoch of a trial's learning curve (``epoch`` is 1-based; ``fold`` is the walk-forward
+    fold it belongs to, 0 for a study with one split)."""
 
     epoch: int
     train_loss: float
     valid_loss: float
     valid_score: float | None = None
     seconds: float = 0.0
+    fold: int = 0
 
     def __post_init__(self):
         _as_int(self, "epoch", minimum=1)
+        _as_int(self, "fold", minimum=0)
         _as_float(self, "train_loss")
         _as_float(self, "valid_loss")
         _as_float(self, "valid_score", optional=True)

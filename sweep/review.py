@@ -30,10 +30,10 @@ from sweep.forecast import (
     one_blas_thread,
     open_study,
     ranked_complete,
-    retrain_trial,
+    retrain_folds,
     window_forecasts,
 )
-from sweep.inputs import window_losses
+from sweep.inputs import fold_mean, window_losses
 from sweep.provenance import code_version, git_commit, package_versions
 from sweep.records import ConfirmRecord, HoldoutRecord, NoteRecord, utc_now
 from sweep.space import params_to_configs
@@ -131,8 +131,9 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
     """
     ctx = open_study(tracker, study)
     trial = tracker.load_trial(ctx.name, number)
-    result = retrain_trial(ctx, trial)
-    replayed = result.history
+    fold_results = retrain_folds(ctx, trial)
+    result = fold_results[-1]
+    replayed = [e for r in fold_results for e in r.history]
     epochs = []
     for i in range(max(len(trial.epochs), len(replayed))):
         old = trial.epochs[i] if i < len(trial.epochs) else None
@@ -149,8 +150,9 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
     max_diff = max((e["max_abs_diff"] for e in epochs if e["max_abs_diff"] is not None), default=0.0)
     same_length = len(replayed) == len(trial.epochs)
     forecasts_diff = weights_diff = None
-    if trial.valid_forecasts is not None and result.best_epoch > 0:
-        new_forecasts = window_forecasts(ctx.inputs, result.network, "valid")
+    if trial.valid_forecasts is not None and result.best_epoch > 0 and len(fold_results) == len(ctx.all_folds):
+        new_forecasts = np.concatenate([window_forecasts(f, r.network, "valid")
+                                        for f, r in zip(ctx.all_folds, fold_results)])
         forecasts_diff = float(np.max(np.abs(new_forecasts - trial.valid_forecasts)))
     if trial.weights is not None:
         stored = np.asarray(trial.weights["params"], dtype=np.float64)
@@ -176,7 +178,9 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
         "study": ctx.name, "trial": number, "state": trial.state, "identical": identical,
         "max_abs_diff": max_diff, "n_epochs_recorded": len(trial.epochs), "n_epochs_replayed": len(replayed),
         "best_epoch_recorded": trial.best_epoch, "best_epoch_replayed": result.best_epoch,
-        "objective_recorded": trial.objective, "objective_replayed": _finite(result.valid_score),
+        "objective_recorded": trial.objective,
+        "objective_replayed": _finite(fold_mean([math.nan if r.valid_score is None else r.valid_score
+                                                 for r in fold_results])),
         "forecasts_max_abs_diff": forecasts_diff, "weights_max_abs_diff": weights_diff, "epochs": epochs,
         "environment": {"same": not differences, "differences": differences},
         "source": source, "source_changed": source["changed"], "message": message,
@@ -189,6 +193,20 @@ def replay_trial(tracker, number: int, *, study: str | None = None) -> dict:
 def confirm_seeds(study_seed: int, number: int, n_seeds: int) -> list[list[int]]:
     """The fresh seeds of a confirmation: ``[study_seed, number, 1000 + k]`` for k = 0 .. n_seeds - 1."""
     return [[int(study_seed), int(number), CONFIRM_SEED_OFFSET + k] for k in range(int(n_seeds))]
+
+
+def _fold_value(results, name: str) -> float | None:
+    """The mean over folds of one seed's value at its best epoch (the value itself for one split)."""
+    values = [_finite(getattr(r, name)) if r.best_epoch > 0 else None for r in results]
+    return None if any(v is None for v in values) else fold_mean(values)
+
+
+def _fold_gap(results) -> float | None:
+    if len(results) == 1:
+        r = results[0]
+        return _finite(r.gap) if r.best_epoch > 0 else None
+    train, valid = _fold_value(results, "train_loss"), _fold_value(results, "valid_loss")
+    return None if train is None or valid is None else valid - train
 
 
 def _summary(values: list[float | None]) -> dict:
@@ -249,13 +267,16 @@ def confirm_trials(tracker, *, study: str | None = None, top: int = 5, n_seeds: 
         mlp_config, train_config = params_to_configs(trial.params, n_inputs=inputs.n_inputs,
                                                      n_outputs=inputs.n_outputs, task=inputs.task,
                                                      training=ctx.spec.training)
+        per_fold = []  # per fold, the K seeds' results; folds train one after another, as in the sweep
         with one_blas_thread():
-            results = fit_mlp_stacked(mlp_config, train_config, inputs.X["train"], inputs.y["train"],
-                                      inputs.X["valid"], inputs.y["valid"],
-                                      rngs=[np.random.default_rng(s) for s in seeds],
-                                      valid_score=inputs.scorer("valid"))
-        objectives = [_finite(r.valid_score) if r.best_epoch > 0 else None for r in results]
-        gaps = [_finite(r.gap) if r.best_epoch > 0 else None for r in results]
+            for f in ctx.all_folds:
+                per_fold.append(fit_mlp_stacked(mlp_config, train_config, f.X["train"], f.y["train"],
+                                                f.X["valid"], f.y["valid"],
+                                                rngs=[np.random.default_rng(s) for s in seeds],
+                                                valid_score=f.scorer("valid")))
+        objectives = [_fold_value([fold[k] for fold in per_fold], "valid_score") for k in range(n_seeds)]
+        gaps = [_fold_gap([fold[k] for fold in per_fold]) for k in range(n_seeds)]
+        results = per_fold[-1]
         rows.append({"trial": trial.number, "objective_recorded": trial.objective, "gap_recorded": trial.gap,
                      "seeds": seeds, "objectives": objectives, "gaps": gaps,
                      "best_epochs": [r.best_epoch for r in results], "stop_reasons": [r.stop_reason for r in results],

@@ -241,7 +241,7 @@ class Tracker(ReviewsMixin):
         found = self._all(f"SELECT * FROM vs_trials WHERE {where} ORDER BY number", params)
         epochs: dict[int, list] = {}
         if with_epochs:
-            for r in self._all("SELECT * FROM vs_epochs WHERE study = ? ORDER BY number, epoch", [study]):
+            for r in self._all("SELECT * FROM vs_epochs WHERE study = ? ORDER BY number, fold, epoch", [study]):
                 epochs.setdefault(r["number"], []).append(rows.row_epoch(r))
         forecasts = {}
         if with_forecasts:
@@ -252,20 +252,20 @@ class Tracker(ReviewsMixin):
             for r in found
         ]
 
-    def load_curves(self, study: str, numbers: Iterable[int]) -> dict[int, list[tuple[int, float | None]]]:
-        """Validation-score curves of some trials: number -> [(epoch, valid_score), ...] in epoch order.
+    def load_curves(self, study: str, numbers: Iterable[int]) -> dict[int, list[tuple[int, int, float | None]]]:
+        """Validation-score curves of some trials: number -> [(fold, epoch, valid_score), ...] in order.
 
         Lighter than ``load_trials(with_epochs=True)``: the pruning view of a worker reads only the
         curves of trials it has not seen yet.
         """
         numbers = [int(n) for n in numbers]
-        curves: dict[int, list[tuple[int, float | None]]] = {n: [] for n in numbers}
+        curves: dict[int, list[tuple[int, int, float | None]]] = {n: [] for n in numbers}
         for start in range(0, len(numbers), 500):  # SQLite limits the number of bound parameters
             chunk = numbers[start:start + 500]
-            sql = (f"SELECT number, epoch, valid_score FROM vs_epochs WHERE study = ? "
-                   f"AND number IN ({', '.join('?' * len(chunk))}) ORDER BY number, epoch")
+            sql = (f"SELECT number, fold, epoch, valid_score FROM vs_epochs WHERE study = ? "
+                   f"AND number IN ({', '.join('?' * len(chunk))}) ORDER BY number, fold, epoch")
             for r in self._all(sql, [study, *chunk]):
-                curves[r["number"]].append((r["epoch"], r["valid_score"]))
+                curves[r["number"]].append((r["fold"], r["epoch"], r["valid_score"]))
         return curves
 
     def load_trial(self, study: str, number: int) -> TrialRecord:
@@ -277,7 +277,7 @@ class Tracker(ReviewsMixin):
         found = self._trial_row(study, number)
         key = [study, int(number)]
         epochs = [rows.row_epoch(r) for r in
-                  self._all("SELECT * FROM vs_epochs WHERE study = ? AND number = ? ORDER BY epoch", key)]
+                  self._all("SELECT * FROM vs_epochs WHERE study = ? AND number = ? ORDER BY fold, epoch", key)]
         blob = self._one("SELECT * FROM vs_forecasts WHERE study = ? AND number = ?", key)
         return rows.row_trial(found, epochs=epochs, valid_forecasts=None if blob is None else rows.blob_to_array(blob),
                               weights=self.load_weights(study, number))

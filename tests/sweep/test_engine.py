@@ -280,8 +280,54 @@ def test_run_study_with_an_optuna_sqlite_storage_in_the_record_file(market):
     assert len(engine.trials) == len(Tracker.open(record).load_trials("rdb")) == 2
 
 
-def test_run_study_refuses_walk_forward_folds_before_writing(market, tmp_path):
-    spec = load_spec(_write_study(market, "folds", folds="3"))
-    with pytest.raises(Exception, match="split.folds"):
-        run_study(spec, record_path=tmp_path / "folds.sqlite", n_workers=1)
-    assert not (tmp_path / "folds.sqlite").exists()
+@pytest.fixture(scope="module")
+def folds_study(market):
+    # three expanding walk-forward folds; no pruning so that every trial trains every fold
+    spec = load_spec(_write_study(market, "folds", folds="3", trials="3", pruner='"none"'))
+    summary = run_study(spec, record_path=market / "folds.sqlite", n_workers=1)
+    return spec, summary
+
+
+def test_run_study_walk_forward_trains_one_network_per_fold(folds_study):
+    from sweep.engine import folds_from_record
+    from sweep.inputs import valid_truth
+
+    spec, summary = folds_study
+    tracker = Tracker.open(summary.record_path, create=False)
+    _, folds = folds_from_record(tracker, tracker.find_study("folds"))
+    assert len(folds) == 3
+    # the validation blocks sit back to back, oldest first, and share the final test window
+    starts = [f.windows.valid[0] for f in folds]
+    assert starts == sorted(starts)
+    assert all(np.array_equal(f.windows.test, folds[-1].windows.test) for f in folds)
+    for t in tracker.load_trials("folds", with_epochs=True, with_forecasts=True):
+        assert t.state == "complete"
+        assert sorted({e.fold for e in t.epochs}) == [0, 1, 2]
+        # the objective is the mean over folds of each fold's score at its best epoch
+        best = []
+        for k in range(3):
+            curve = [e for e in t.epochs if e.fold == k]
+            best.append(min(e.valid_score for e in curve))
+        assert t.objective == pytest.approx(np.mean(best), rel=1e-12)
+        # the validation forecasts cover every fold's block, like the baselines' forecasts
+        assert t.valid_forecasts.shape == valid_truth(folds).shape
+    for b in tracker.load_baselines("folds", "valid"):
+        assert b.forecasts.shape == valid_truth(folds).shape
+
+
+def test_walk_forward_trials_replay_fold_by_fold(folds_study):
+    from sweep import review
+
+    _, summary = folds_study
+    tracker = Tracker.open(summary.record_path, create=False)
+    report = review.replay_trial(tracker, 0, study="folds")
+    assert report["identical"], report["message"]
+    assert report["n_epochs_replayed"] == report["n_epochs_recorded"]
+    assert report["objective_replayed"] == report["objective_recorded"]
+
+
+def test_walk_forward_optuna_values_equal_the_record(folds_study):
+    _, summary = folds_study
+    recorded = {t.number: t.objective for t in Tracker.open(summary.record_path).load_trials("folds")}
+    for t in _optuna_study(summary).get_trials():
+        assert t.value == pytest.approx(recorded[t.number], rel=1e-12)
