@@ -14,6 +14,9 @@ pruned trial, its objective as the one intermediate value at the epoch it was st
 
 from __future__ import annotations
 
+import math
+
+import numpy as np
 import optuna
 from optuna.trial import TrialState
 
@@ -106,6 +109,11 @@ class PruningView:
             datetime_complete=None, params={}, distributions={}, user_attrs={}, system_attrs={},
             intermediate_values=self._curve, trial_id=self._trial._trial_id,
         )
+        pruner = self._study.pruner
+        self._rule = None
+        if type(pruner) in (optuna.pruners.MedianPruner, optuna.pruners.PercentilePruner):
+            completed = self._study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
+            self._rule = _PercentileRule(pruner, [t.intermediate_values for t in completed])
 
     def should_prune(self, epoch: int, score: float) -> bool:
         """Report one epoch's score of the running trial and ask the pruner."""
@@ -113,6 +121,8 @@ class PruningView:
             self._trial.report(float(score), int(epoch))
             return self._trial.should_prune()
         self._curve[int(epoch)] = float(score)
+        if self._rule is not None:
+            return self._rule.decide(int(epoch), float(score))
         return bool(self._study.pruner.prune(self._study, self._frozen))
 
     def finish(self, number: int, state: str, value: float | None = None) -> None:
@@ -143,3 +153,45 @@ class PruningView:
         if self._trial is not None:
             self._study.tell(self._trial, state=TrialState.FAIL)
             self._trial = None
+
+
+class _PercentileRule:
+    """optuna's percentile (and median) pruning rule for one running trial, in constant time per epoch.
+
+    `PercentilePruner.prune` gathers the completed trials, rescans the running trial's steps and takes
+    a percentile over the trials at every call: a cost that grows with epochs and trials. The finished
+    trials of a view do not change while a trial runs, so the percentile at each step is computed once
+    and the running trial's best value and previous step are carried along. The decisions are the same
+    as the pruner's (`tests/sweep/test_pruning.py` checks them against optuna's own, epoch by epoch);
+    steps must arrive in increasing order, as a training loop reports them.
+    """
+
+    def __init__(self, pruner, completed_curves: list[dict]):
+        self.percentile = float(pruner._percentile)
+        self.n_startup = int(pruner._n_startup_trials)
+        self.n_warmup = int(pruner._n_warmup_steps)
+        self.interval = int(pruner._interval_steps)
+        self.n_min = int(pruner._n_min_trials)
+        self.curves = completed_curves
+        self.cache: dict[int, float] = {}
+        self.best = math.inf
+        self.previous = -1
+
+    def _threshold(self, step: int) -> float:
+        if step not in self.cache:
+            values = [c[step] for c in self.curves if step in c]
+            self.cache[step] = (math.nan if len(values) < self.n_min
+                                else float(np.nanpercentile(np.array(values, dtype=float), self.percentile)))
+        return self.cache[step]
+
+    def decide(self, step: int, value: float) -> bool:
+        previous, self.previous = self.previous, step
+        self.best = min(self.best, value)
+        n = len(self.curves)
+        if n == 0 or n < self.n_startup or step < self.n_warmup:
+            return False
+        nearest_lower = (step - self.n_warmup) // self.interval * self.interval + self.n_warmup
+        if previous >= nearest_lower:  # not the first report in this interval
+            return False
+        p = self._threshold(step)
+        return False if math.isnan(p) else self.best > p

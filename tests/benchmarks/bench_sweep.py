@@ -39,18 +39,6 @@ FIXED = {"batch_size": 32, "hidden_units": 16, "layers": 2, "dropout": 0.1, "pat
          "learning_rate": 1e-3, "weight_decay": 1e-5, "activation": "relu"}
 
 
-class _DecideButKeep(optuna.pruners.BasePruner):
-    """Pays the full cost of a pruning decision every epoch but never prunes, so every trial runs
-    all its epochs and its time compares with a plain fit of the same length."""
-
-    def __init__(self, inner):
-        self._inner = inner
-
-    def prune(self, study, trial) -> bool:
-        self._inner.prune(study, trial)
-        return False
-
-
 def _study_text(trials: int, epochs: int, workers: int, name: str) -> str:
     # patience above max_epochs: every trial runs all its epochs
     return set_keys(demo_study_text(), name=f'"{name}"', trials=str(trials), workers=str(workers),
@@ -78,20 +66,35 @@ def bench_overhead(folder: Path, n_trials: int, epochs: int, storage_kind: str) 
     spec_r, inputs = inputs_from_record(tracker, tracker.find_study(spec.study.name))
     study = optuna.load_study(study_name=spec.study.name, storage=open_storage(storage),
                               sampler=optuna.samplers.TPESampler(seed=0))
-    view = PruningView(_DecideButKeep(optuna.pruners.MedianPruner(n_startup_trials=0, n_warmup_steps=0)))
+    # a median pruner that checks every epoch (no start-up trials, no warm-up) but never has enough
+    # trials at a step to prune: every trial pays for a pruning decision per epoch and runs all epochs
+    view = PruningView(optuna.pruners.MedianPruner(n_startup_trials=0, n_warmup_steps=0, n_min_trials=10**6),
+                       epochs_per_fold=epochs)
+    mlp_config, train_config = params_to_configs(FIXED, n_inputs=inputs.n_inputs, n_outputs=inputs.n_outputs,
+                                                 task=inputs.task, training=spec_r.training)
+
+    def through_engine():
+        t0 = time.perf_counter()
+        run_trial(study, spec_r, inputs, tracker, view)
+        engine.append(time.perf_counter() - t0)
+
+    def plain_fit(number):
+        t0 = time.perf_counter()
+        fit_mlp(mlp_config, train_config, inputs.X["train"], inputs.y["train"], inputs.X["valid"],
+                inputs.y["valid"], rng=np.random.default_rng(trial_seed(spec.study.seed, number)),
+                valid_score=inputs.scorer("valid"))
+        plain.append(time.perf_counter() - t0)
+
     engine, plain = [], []
     for i in range(n_trials):
         study.enqueue_trial(FIXED)
-        t0 = time.perf_counter()
-        outcome = run_trial(study, spec_r, inputs, tracker, view)
-        engine.append(time.perf_counter() - t0)
-        mlp_config, train_config = params_to_configs(FIXED, n_inputs=inputs.n_inputs, n_outputs=inputs.n_outputs,
-                                                     task=inputs.task, training=spec_r.training)
-        t0 = time.perf_counter()
-        fit_mlp(mlp_config, train_config, inputs.X["train"], inputs.y["train"], inputs.X["valid"],
-                inputs.y["valid"], rng=np.random.default_rng(trial_seed(spec.study.seed, outcome.number)),
-                valid_score=inputs.scorer("valid"))
-        plain.append(time.perf_counter() - t0)
+        number = study.trials[-1].number  # the waiting trial the engine will run next
+        if i % 2:  # alternate the order so that drift in the machine's speed cancels
+            plain_fit(number)
+            through_engine()
+        else:
+            through_engine()
+            plain_fit(number)
     ratios = [(e - p) / p for e, p in zip(engine, plain)]
     return {"storage": storage_kind, "epochs": epochs, "trial_s": statistics.median(engine),
             "fit_s": statistics.median(plain), "overhead": statistics.median(ratios)}
@@ -126,9 +129,9 @@ def main(argv=None) -> int:
         folder = Path(tmp)
         (folder / "data").mkdir()
         write_market_csv(folder / "data", seed=7)
-        n = 3 if args.quick else 8
+        n = 3 if args.quick else 12
         overhead = [bench_overhead(folder, n, 100, kind) for kind in ("journal", "sqlite")]
-        workers = bench_workers(folder, 8 if args.quick else 24, 60 if args.quick else 100)
+        workers = bench_workers(folder, 8 if args.quick else 48, 60 if args.quick else 100)
     print(f"{'storage':<10}{'epochs':>8}{'trial s':>10}{'fit s':>10}{'overhead':>10}")
     for row in overhead:
         print(f"{row['storage']:<10}{row['epochs']:>8}{row['trial_s']:>10.3f}{row['fit_s']:>10.3f}"

@@ -13,6 +13,8 @@ optuna.logging.set_verbosity(optuna.logging.WARNING)
 PRUNERS = {
     "median": lambda: optuna.pruners.MedianPruner(n_startup_trials=3, n_warmup_steps=2),
     "percentile": lambda: optuna.pruners.PercentilePruner(25.0, n_startup_trials=2),
+    "median-interval": lambda: optuna.pruners.MedianPruner(n_startup_trials=2, n_warmup_steps=3,
+                                                           interval_steps=4, n_min_trials=3),
     "halving": lambda: optuna.pruners.SuccessiveHalvingPruner(min_resource=2, reduction_factor=3),
 }
 
