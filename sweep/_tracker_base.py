@@ -28,11 +28,14 @@ __all__ = [
     "TrialNotFound",
 ]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2  # 2: epochs carry their walk-forward fold
 BUSY_TIMEOUT = 30.0
 _TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
 _TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
 _STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
+_EPOCHS_TABLE = f"""CREATE TABLE IF NOT EXISTS vs_epochs (
+    {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
+    valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});"""
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS vs_meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS vs_datasets (
@@ -51,9 +54,7 @@ CREATE TABLE IF NOT EXISTS vs_trials (
     valid_loss REAL, gap REAL, gap_ratio REAL, started TEXT, finished TEXT, seconds REAL, error TEXT,
     worker TEXT, PRIMARY KEY (study, number));
 CREATE INDEX IF NOT EXISTS vs_trials_state ON vs_trials (study, state);
-CREATE TABLE IF NOT EXISTS vs_epochs (
-    {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
-    valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});
+{{epochs_table}}
 CREATE TABLE IF NOT EXISTS vs_forecasts (
     {_TRIAL_KEY}, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
     PRIMARY KEY (study, number), {_TRIAL_FK});
@@ -76,7 +77,7 @@ CREATE TABLE IF NOT EXISTS vs_notes (
     id INTEGER PRIMARY KEY AUTOINCREMENT, {_STUDY_FK}, trial INTEGER, created TEXT NOT NULL,
     text TEXT NOT NULL, author TEXT,
     FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number));
-"""
+""".replace("{epochs_table}", _EPOCHS_TABLE)
 TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
           "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes")
 
@@ -168,6 +169,22 @@ class TrackerBase:
                 f"{self.location} is not a volsweep record: tables missing: {', '.join(missing)}; "
                 "the file may be damaged, use a backup copy"
             )
+        if version < SCHEMA_VERSION:
+            self._upgrade(version)
+
+    def _upgrade(self, version: int) -> None:
+        """Bring a record from an older schema up to this one, in place and in one transaction."""
+        with self._transaction():
+            if version < 2:  # epochs gain their fold (0: the single split every older study used)
+                self.db.execute("ALTER TABLE vs_epochs RENAME TO vs_epochs_v1")
+                self.db.execute(_EPOCHS_TABLE)
+                self.db.execute(
+                    "INSERT INTO vs_epochs (study, number, fold, epoch, train_loss, valid_loss, valid_score, "
+                    "seconds) SELECT study, number, 0, epoch, train_loss, valid_loss, valid_score, seconds "
+                    "FROM vs_epochs_v1"
+                )
+                self.db.execute("DROP TABLE vs_epochs_v1")
+            self.db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
 
     @contextlib.contextmanager
     def _transaction(self) -> Iterator[None]:

@@ -366,6 +366,35 @@ def test_open_rejects_a_newer_schema(tmp_path):
         Tracker.open(path)
 
 
+def test_open_upgrades_a_schema_1_record_keeping_its_epochs(tmp_path):
+    # a record written before epochs carried their fold: same rows, old epochs table, version 1
+    path = tmp_path / "old.sqlite"
+    with Tracker.open(path) as t:
+        t.save_study(make_study(), make_dataset())
+        t.record_trial(make_trial(0, n_epochs=3))
+    conn = sqlite3.connect(path)
+    conn.executescript("""
+        CREATE TABLE e1 AS SELECT study, number, epoch, train_loss, valid_loss, valid_score, seconds FROM vs_epochs;
+        DROP TABLE vs_epochs;
+        CREATE TABLE vs_epochs (study TEXT NOT NULL, number INTEGER NOT NULL, epoch INTEGER NOT NULL,
+            train_loss REAL, valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, epoch));
+        INSERT INTO vs_epochs SELECT * FROM e1;
+        DROP TABLE e1;
+        UPDATE vs_meta SET value = '1' WHERE key = 'schema_version';
+    """)
+    conn.commit()
+    conn.close()
+    with Tracker.open(path) as t:
+        # the epochs are still there, all in fold 0, and a trial with two folds can now be written
+        assert [(e.fold, e.epoch) for e in t.load_trial("coastal", 0).epochs] == [(0, 1), (0, 2), (0, 3)]
+        two_folds = dataclasses.replace(make_trial(1, n_epochs=2), epochs=tuple(
+            EpochRow(epoch=e, train_loss=0.5, valid_loss=0.6, fold=f) for f in (0, 1) for e in (1, 2)))
+        t.record_trial(two_folds)
+        assert [(e.fold, e.epoch) for e in t.load_trial("coastal", 1).epochs] == [(0, 1), (0, 2), (1, 1), (1, 2)]
+    version = sqlite3.connect(path).execute("SELECT value FROM vs_meta WHERE key = 'schema_version'").fetchone()
+    assert version == (str(tracker_module.SCHEMA_VERSION),)
+
+
 def test_copied_file_is_a_complete_study(tmp_path):
     path = tmp_path / "a" / "coastal.sqlite"
     path.parent.mkdir()
