@@ -13,7 +13,7 @@ from pathlib import Path
 
 from sweep.ranking import rank_rows
 from sweep.records import TRIAL_STATES
-from sweep.space import SETTINGS, Choice, Fixed, FloatRange, IntRange
+from sweep.space import Choice, Fixed, FloatRange, IntRange
 
 __all__ = [
     "N_CURVES",

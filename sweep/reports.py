@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 from sweep.engine import _load_price_data
-from sweep.inputs import build_study_dataset, compute_baselines, prepare_inputs
+from sweep.inputs import compute_baselines, prepare_inputs
 from sweep.ranking import rank_rows, trial_row
 from sweep.tracker import Tracker
 from trainers import volatility

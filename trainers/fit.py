@@ -265,7 +265,7 @@ class _Stack:
         """Train every active network for one epoch; return (network position, record) pairs."""
         t0 = time.perf_counter()
         self.epoch += 1
-        cfg, p = self.cfg, self.cfg.dropout
+        p = self.cfg.dropout
         for j, k in enumerate(self.active):
             rng = self.shuffle_rngs[k]
             np.take(self.xy, rng.permutation(self.n_train), axis=0, out=self.shuffled[j], mode="clip")

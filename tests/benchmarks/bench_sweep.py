@@ -29,7 +29,6 @@ from sweep.engine import inputs_from_record, open_storage, run_study
 from sweep.objective import run_trial, trial_seed
 from sweep.pruning import PruningView
 from sweep.space import params_to_configs
-from sweep.spec import parse_spec
 from sweep.studyfile import set_keys
 from sweep.tracker import Tracker
 from trainers.fit import fit_mlp
