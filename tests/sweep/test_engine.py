@@ -331,3 +331,26 @@ def test_walk_forward_optuna_values_equal_the_record(folds_study):
     recorded = {t.number: t.objective for t in Tracker.open(summary.record_path).load_trials("folds")}
     for t in _optuna_study(summary).get_trials():
         assert t.value == pytest.approx(recorded[t.number], rel=1e-12)
+
+
+def test_run_study_drops_bad_rows_when_asked_and_records_which(tmp_path):
+    (tmp_path / "data").mkdir()
+    write_market_csv(tmp_path / "data", seed=3, n_days=N_DAYS)
+    csv = tmp_path / "data" / "harbor_index.csv"
+    lines = csv.read_text().splitlines()
+    header = lines[0].split(",")
+    row = lines[100].split(",")
+    row[header.index("high")] = "0.5"  # high below open and close: a bad row on file line 101
+    lines[100] = ",".join(row)
+    csv.write_text("\n".join(lines) + "\n")
+    refused = load_spec(_write_study(tmp_path, "strict", trials="1"))
+    with pytest.raises(Exception, match="line 101"):
+        run_study(refused, record_path=tmp_path / "strict.sqlite", n_workers=1)
+    assert not (tmp_path / "strict.sqlite").exists()  # nothing written
+    spec = load_spec(_write_study(tmp_path, "lenient", trials="1", bad_rows='"drop"'))
+    summary = run_study(spec, record_path=tmp_path / "lenient.sqlite", n_workers=1)
+    tracker = Tracker.open(summary.record_path, create=False)
+    dataset = tracker.load_dataset(tracker.find_study("lenient").dataset_sha256)
+    # the dropped row is named in the record, and the kept copy of the rows lacks it
+    assert dataset.n_rows == N_DAYS - 1
+    assert any("line 101" in p for p in dataset.dropped)
