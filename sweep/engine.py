@@ -190,9 +190,21 @@ def _check_unchanged(old: StudyRecord, spec: StudySpec, sha256: str) -> None:
 
 
 def _recover_orphans(study: optuna.Study, tracker: Tracker, spec: StudySpec, reason: str) -> list[int]:
-    """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again."""
+    """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again.
+
+    A worker that died after writing a trial's record but before telling optuna left a finished trial:
+    optuna is then told what the record says, and nothing is run again.
+    """
     numbers = []
+    recorded = {r.number: r for r in tracker.load_trials(spec.study.name, states=("complete", "pruned"))}
     for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        done = recorded.get(t.number)
+        if done is not None:
+            if done.state == "complete" and done.objective is not None:
+                study.tell(t.number, done.objective)
+            else:
+                study.tell(t.number, state=TrialState.PRUNED)
+            continue
         # marked like an interrupted trial: it does not use up the budget, its retry does
         study._storage.set_trial_user_attr(t._trial_id, "interrupted", True)
         study.tell(t.number, state=TrialState.FAIL)

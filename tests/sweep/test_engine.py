@@ -3,6 +3,7 @@ failing trial, a stopped worker, a changed study file, and the record against op
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 
 import numpy as np
@@ -354,3 +355,22 @@ def test_run_study_drops_bad_rows_when_asked_and_records_which(tmp_path):
     # the dropped row is named in the record, and the kept copy of the rows lacks it
     assert dataset.n_rows == N_DAYS - 1
     assert any("line 101" in p for p in dataset.dropped)
+
+
+def test_recover_keeps_a_trial_recorded_before_its_worker_died(market):
+    from sweep.engine import _recover_orphans
+
+    spec = load_spec(_write_study(market, "late", trials="1"))
+    storage = str(market / "late.optuna.log")
+    record = market / "late.sqlite"
+    run_study(spec, record_path=record, storage=storage, n_trials=1)
+    study = optuna.load_study(study_name="late", storage=open_storage(storage))
+    tracker = Tracker.open(record)
+    done = tracker.load_trial("late", 0)
+    # a second trial whose record was written, but optuna was never told (the worker died in between)
+    left = study.ask()
+    tracker.record_trial(dataclasses.replace(done, number=left.number))
+    assert _recover_orphans(study, tracker, spec, "stopped") == []
+    assert study.trials[left.number].state == optuna.trial.TrialState.COMPLETE
+    assert study.trials[left.number].value == done.objective
+    assert tracker.load_trial("late", left.number).state == "complete"
