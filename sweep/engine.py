@@ -459,3 +459,6 @@ def _run_processes(plan, remaining, n_workers, study, on_event) -> None:
                 p.terminate()
         listening.clear()
         listener.join(timeout=5)
+        for w, p in enumerate(procs, start=1):
+            if p.exitcode not in (0, None) and not stop.is_set():
+                deliver(("crash", w, f"the worker process ended with exit code {p.exitcode}"))

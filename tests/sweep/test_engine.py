@@ -374,3 +374,49 @@ def test_recover_keeps_a_trial_recorded_before_its_worker_died(market):
     assert study.trials[left.number].state == optuna.trial.TrialState.COMPLETE
     assert study.trials[left.number].value == done.objective
     assert tracker.load_trial("late", left.number).state == "complete"
+
+
+def test_a_killed_worker_process_is_reported_and_its_trial_queued_again(market):
+    # kill the spawned worker (SIGKILL) once it has recorded a trial and is training the next one
+    import multiprocessing
+    import os
+    import signal
+    import threading
+    import time
+
+    spec = load_spec(_write_study(market, "killed", trials="30", workers="2", max_epochs="100",
+                                  batch_size="16", patience="[1000, 1001]", pruner='"none"'))
+    record = market / "killed.sqlite"
+    killed = []
+
+    def kill_worker():
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and not killed:
+            time.sleep(0.05)
+            try:
+                workers = {t.worker for t in Tracker.open(record, create=False).load_trials("killed")}
+            except Exception:  # the record is not there yet
+                continue
+            if any(not w.endswith(f":{os.getpid()}") for w in workers):
+                for child in multiprocessing.active_children():
+                    if child.name.startswith("volsweep-worker"):
+                        time.sleep(0.1)  # into its next trial
+                        os.kill(child.pid, signal.SIGKILL)
+                        killed.append(child.pid)
+
+    killer = threading.Thread(target=kill_worker)
+    killer.start()
+    events = []
+    summary = run_study(spec, record_path=record, on_event=lambda e, c: events.append(e))
+    killer.join()
+    assert killed
+    crashes = [e for e in events if isinstance(e, tuple) and e[0] == "crash"]
+    assert crashes and "exit code -9" in crashes[0][2]
+    # the trial it was running (if the kill did not fall between two trials) is recorded as failed
+    # and queued again; the main process went on
+    assert len(summary.recovered) <= 1
+    trials = {t.number: t for t in Tracker.open(record).load_trials("killed")}
+    for number in summary.recovered:
+        assert "stopped before it finished" in trials[number].error
+    again = run_study(spec, record_path=record, n_workers=1)
+    assert again.counts["complete"] == 30
