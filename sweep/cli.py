@@ -14,9 +14,9 @@ from typing import Annotated, Optional
 import typer
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from sweep.errors import VolsweepError
-from trainers.data import PriceFileError
 
 __all__ = ["app", "main"]
 
@@ -47,11 +47,9 @@ def _handles_errors(func):
     def wrapper(*args, **kwargs):
         try:
             return func(*args, **kwargs)
-        except PriceFileError as exc:
-            err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
-            raise typer.Exit(code=1)
-        except (VolsweepError, ValueError) as exc:
-            err.print(f"[bold red]error:[/] {exc}", markup=True, highlight=False)
+        except (VolsweepError, ValueError) as exc:  # PriceFileError is a ValueError
+            # the message is text, never markup: user strings may hold brackets
+            err.print(Text.assemble(("error:", "bold red"), " ", str(exc)), highlight=False)
             raise typer.Exit(code=1)
 
     return wrapper
@@ -424,8 +422,6 @@ def note(
 @_handles_errors
 def notes(db: DbArg, study: StudyOpt = None, as_json: JsonOpt = False) -> None:
     """The study's decision notes, oldest first."""
-    from rich.text import Text
-
     from sweep.review import list_notes
 
     found = _clean(list_notes(_open_record(db), study=study))

@@ -249,7 +249,6 @@ class _WorkerPlan:
     record_path: str
     storage_url: str
     study_name: str
-    spec_text: str
     worker: int
 
 
@@ -355,7 +354,7 @@ def run_study(
     )
     remaining = max(0, n_target - _n_finished(study))
     if remaining:
-        plan = _WorkerPlan(str(record_path), storage_url, spec.study.name, spec.text, 0)
+        plan = _WorkerPlan(str(record_path), storage_url, spec.study.name, 0)
         try:
             if n_workers <= 1:
                 _run_inline(plan, remaining, study, on_event)
@@ -416,7 +415,7 @@ def _run_processes(plan, remaining, n_workers, study, on_event) -> None:
     for w in range(1, min(n_workers, remaining)):
         p = ctx.Process(
             target=_worker_main,
-            args=(_WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, plan.spec_text, w),
+            args=(_WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, w),
                   slots, stop, events),
             name=f"volsweep-worker-{w}",
             daemon=True,
