@@ -10,6 +10,8 @@ relu, Adam (lr 1e-3), batch sizes 16, 64 and 256, float64 and float32, one BLAS 
   timed too and shown in its own column;
 * scikit-learn: one ``MLPRegressor.partial_fit`` over the 4,000 rows (one epoch, shuffled);
 * PyTorch: one epoch of the usual loop (randperm, zero_grad, forward, MSELoss, backward, Adam step);
+* peak %: the matrix products of our epoch (``epoch_macs``) timed at the rate of one large product
+  measured in the same run, as a share of our measured epoch: how close the core runs to the machine;
 * stacked: one epoch of K=8 networks trained together (``fit_mlp_stacked``'s engine) against 8 single
   runs, at batch 16.
 
@@ -129,6 +131,27 @@ class Torch:
             self.opt.step()
 
 
+def epoch_macs(hidden) -> int:
+    """Multiply-adds in the matrix products of one of our epochs (biases folded in as a row of ones).
+
+    Per training row: forward P, weight gradients P, and the backward products into every hidden layer
+    (the weights without their bias row, input layer excluded); then the evaluation forward, P per row
+    of the training and validation windows. P = n_params.
+    """
+    widths = (N_IN, *hidden, N_OUT)
+    p = sum((a + 1) * b for a, b in zip(widths[:-1], widths[1:]))
+    back = sum(a * b for a, b in zip(widths[1:-1], widths[2:]))
+    return N_TRAIN * (2 * p + back) + (N_TRAIN + N_VALID) * p
+
+
+def product_rate(dtype: str) -> float:
+    """Multiply-adds per second of one large (64, 65) @ (65, 4096) product: this machine's practical peak."""
+    rng = np.random.default_rng(0)
+    a, b = rng.standard_normal((64, 65)).astype(dtype), rng.standard_normal((65, 4096)).astype(dtype)
+    out = np.empty((64, 4096), dtype)
+    return 64 * 65 * 4096 / min(timed(lambda: np.matmul(a, b, out)) for _ in range(30))
+
+
 def timed(fn) -> float:
     t0 = time.perf_counter()
     fn()
@@ -160,22 +183,26 @@ def main() -> None:
         cases[(hidden, 16, "float64", "stack")] = {"single": Ours(hidden, 16, "float64", data),
                                                     "stacked": Stacked(hidden, 16, "float64", data)}
     times = {key: {name: [] for name in objs} for key, objs in cases.items()}
+    rates = {dtype: [] for dtype in DTYPES}
     for rnd in range(args.warmup + args.reps):
+        for dtype in DTYPES:
+            rates[dtype].append(product_rate(dtype))
         for key, objs in cases.items():
             for name, obj in objs.items():
                 t = timed(obj.epoch)
                 if rnd >= args.warmup:
                     times[key][name].append(t)
     med = {key: {name: statistics.median(v) for name, v in d.items()} for key, d in times.items()}
+    peak = {dtype: max(v) for dtype, v in rates.items()}
 
     print(f"numpy {np.__version__}, scikit-learn {sklearn.__version__}, torch "
           f"{torch.__version__ if torch is not None else 'not installed'}, python {platform.python_version()}; "
           f"BLAS threads: {[i['num_threads'] for i in threadpool_info()]}; median of {args.reps} rounds")
     head = f"{'hidden':<9}{'batch':>6} {'dtype':<8}{'ours ms':>9}{'(eval ms)':>10}{'sklearn ms':>11}" \
-           f"{'torch ms':>10}{'sk/ours':>9}{'torch/ours':>11}{'sk/ours-no-eval':>16}"
+           f"{'torch ms':>10}{'sk/ours':>9}{'torch/ours':>11}{'sk/ours-no-eval':>16}{'peak %':>8}"
     print(head)
     print("-" * len(head))
-    sk_ratio, torch_ratio, no_eval = {}, {}, {}
+    sk_ratio, torch_ratio, no_eval, share = {}, {}, {}, {}
     for key, m in med.items():
         if len(key) == 4:
             continue
@@ -190,9 +217,13 @@ def main() -> None:
             line += f"{1e3 * m['torch']:>10.2f}{sk_ratio[label]:>9.2f}{torch_ratio[label]:>11.2f}"
         else:
             line += f"{'-':>10}{sk_ratio[label]:>9.2f}{'-':>11}"
-        print(line + f"{no_eval[label]:>16.2f}")
+        share[label] = epoch_macs(hidden) / (m["ours"] * peak[dtype])
+        print(line + f"{no_eval[label]:>16.2f}{100 * share[label]:>8.0f}")
     print("ours = a full epoch, including the evaluation-mode losses on 5,000 rows (eval ms) that the others "
-          "skip;\nsk/ours-no-eval = scikit-learn against our epoch without that evaluation (for information only)")
+          "skip;\nsk/ours-no-eval = scikit-learn against our epoch without that evaluation (for information only);\n"
+          "peak % = the time our epoch's matrix products would take at the rate of one large product "
+          f"measured in this run ({2e-9 * peak['float64']:.1f} GFLOP/s float64, {2e-9 * peak['float32']:.1f} "
+          "float32),\nas a share of the epoch's measured time: 100 % would be every cycle in products at that rate")
     stack_ratio = {}
     print(f"\nstacked K={K_STACK} at batch 16, float64: throughput against {K_STACK} sequential runs")
     for key, m in med.items():
@@ -216,6 +247,7 @@ def main() -> None:
                       "torch_over_ours": {k: round(v, 3) for k, v in torch_ratio.items()} or None,
                       "stacked_throughput_ratio": {k: round(v, 3) for k, v in stack_ratio.items()},
                       "sklearn_over_ours_without_eval": {k: round(v, 3) for k, v in no_eval.items()},
+                      "share_of_product_peak": {k: round(v, 3) for k, v in share.items()},
                       "targets_met": targets, "reps": args.reps}))
 
 
