@@ -40,7 +40,8 @@ from typing import Callable, Sequence
 import numpy as np
 
 from trainers import losses
-from trainers.mlp import MLPConfig, Network, Evaluator, Workspace, decay_mask, init_params, unpack_params
+from trainers.mlp import MLPConfig, Network, decay_mask, init_params, unpack_params
+from trainers.passes import Evaluator, Workspace
 from trainers.optim import OPTIMIZERS, make_optimizer
 
 __all__ = ["TrainConfig", "EpochRecord", "FitResult", "STOP_REASONS", "TrainingRun", "train_mlp", "fit_mlp",
