@@ -8,6 +8,7 @@ from __future__ import annotations
 import functools
 import json
 import math
+import os
 from pathlib import Path
 from typing import Annotated, Optional
 
@@ -27,8 +28,19 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
     add_completion=False,
 )
-out = Console(soft_wrap=True)
-err = Console(stderr=True, soft_wrap=True)
+
+
+def _console(stderr: bool = False) -> Console:
+    """A rich console. Printed to a file or a pipe (a log, CI), rich would cut tables to 80 columns and
+    end values with an ellipsis; there the console is 160 columns wide unless COLUMNS says otherwise."""
+    console = Console(stderr=stderr, soft_wrap=True)
+    if not console.is_terminal and "COLUMNS" not in os.environ:
+        console.width = 160
+    return console
+
+
+out = _console()
+err = _console(stderr=True)
 
 CAUTION = (
     "Forecasts are estimates from historical data, not advice; out-of-sample results can differ. "

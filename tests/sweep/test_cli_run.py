@@ -89,6 +89,15 @@ def test_run_prints_the_top_trials_beside_the_best_baseline(study):
     assert "not advice" in result.stdout
 
 
+def test_tables_printed_to_a_pipe_keep_their_values_whole(study):
+    # CliRunner's output is not a terminal, like a log file or CI: rich would cut the table to 80 columns
+    path, _ = study
+    result = invoke("top", path.with_suffix(".sqlite"))
+    assert result.exit_code == 0, result.output
+    assert "best/epochs" in result.stdout and "complete" in result.stdout
+    assert "\u2026" not in result.stdout  # no value ends in an ellipsis
+
+
 def test_top_json_has_the_promised_fields(study):
     path, _ = study
     result = invoke("top", path.with_suffix(".sqlite"), "--json")
