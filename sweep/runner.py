@@ -67,7 +67,7 @@ def run_with_progress(study_file: Path, *, trials=None, workers=None, db=None, s
 
 
 def _print_summary(console: Console, summary: RunSummary) -> None:
-    from sweep.cli import _ranking_table, CAUTION
+    from sweep._cli_common import CAUTION, _ranking_table
     from sweep.reports import top_report
     from sweep.tracker import Tracker
 
