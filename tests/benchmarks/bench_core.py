@@ -16,8 +16,10 @@ relu, Adam (lr 1e-3), batch sizes 16, 64 and 256, float64 and float32, one BLAS 
   runs, at batch 16.
 
 Configurations and contenders are interleaved round by round; the first ``--warmup`` rounds are
-dropped and the median of the remaining rounds is reported. The table is followed by one JSON line
-with the ratios (reference seconds / our seconds; above 1 means we are faster) and the targets.
+dropped. Times shown are medians over the remaining rounds; each ratio is the median of the
+rounds' own ratios (``paired``), so a drift of the machine between rounds cancels. The table is
+followed by one JSON line with the ratios (reference seconds / our seconds; above 1 means we are
+faster) and the targets.
 """
 
 from __future__ import annotations
@@ -152,6 +154,17 @@ def product_rate(dtype: str) -> float:
     return 64 * 65 * 4096 / min(timed(lambda: np.matmul(a, b, out)) for _ in range(30))
 
 
+def paired(times: dict, ref: str, ours) -> float:
+    """Median over rounds of (seconds of ``ref``) / (our seconds) within each round.
+
+    The contenders of one case run back to back in every round, so a drift of the machine's speed
+    between rounds (this shared machine drifts by 10-40 %) cancels in each round's ratio.
+    ``ours`` is a function of one round's times (a dict name -> seconds), giving our seconds.
+    """
+    rounds = [dict(zip(times, r)) for r in zip(*times.values())]
+    return statistics.median(r[ref] / max(ours(r), 1e-9) for r in rounds)
+
+
 def timed(fn) -> float:
     t0 = time.perf_counter()
     fn()
@@ -197,7 +210,8 @@ def main() -> None:
 
     print(f"numpy {np.__version__}, scikit-learn {sklearn.__version__}, torch "
           f"{torch.__version__ if torch is not None else 'not installed'}, python {platform.python_version()}; "
-          f"BLAS threads: {[i['num_threads'] for i in threadpool_info()]}; median of {args.reps} rounds")
+          f"BLAS threads: {[i['num_threads'] for i in threadpool_info()]}; median of {args.reps} rounds; "
+          "ratios are medians of the rounds' own ratios")
     head = f"{'hidden':<9}{'batch':>6} {'dtype':<8}{'ours ms':>9}{'(eval ms)':>10}{'sklearn ms':>11}" \
            f"{'torch ms':>10}{'sk/ours':>9}{'torch/ours':>11}{'sk/ours-no-eval':>16}{'peak %':>8}"
     print(head)
@@ -208,13 +222,14 @@ def main() -> None:
             continue
         hidden, batch, dtype = key
         label = f"h{'x'.join(map(str, hidden))}_b{batch}_{dtype}"
-        sk_ratio[label] = m["sklearn"] / m["ours"]
-        no_eval[label] = m["sklearn"] / max(m["ours"] - m["ours_eval"], 1e-9)
+        t = times[key]
+        sk_ratio[label] = paired(t, "sklearn", lambda r: r["ours"])
+        no_eval[label] = paired(t, "sklearn", lambda r: r["ours"] - r["ours_eval"])
         line = (f"{str(list(hidden)):<9}{batch:>6} {dtype:<8}{1e3 * m['ours']:>9.2f}{1e3 * m['ours_eval']:>10.2f}"
                 f"{1e3 * m['sklearn']:>11.2f}")
         if "torch" in m:
-            torch_ratio[label] = m["torch"] / m["ours"]
-            torch_no_eval[label] = m["torch"] / max(m["ours"] - m["ours_eval"], 1e-9)
+            torch_ratio[label] = paired(t, "torch", lambda r: r["ours"])
+            torch_no_eval[label] = paired(t, "torch", lambda r: r["ours"] - r["ours_eval"])
             line += f"{1e3 * m['torch']:>10.2f}{sk_ratio[label]:>9.2f}{torch_ratio[label]:>11.2f}"
         else:
             line += f"{'-':>10}{sk_ratio[label]:>9.2f}{'-':>11}"
@@ -230,7 +245,7 @@ def main() -> None:
     for key, m in med.items():
         if len(key) == 4:
             label = f"h{'x'.join(map(str, key[0]))}"
-            stack_ratio[label] = K_STACK * m["single"] / m["stacked"]
+            stack_ratio[label] = K_STACK * paired(times[key], "single", lambda r: r["stacked"])
             print(f"  hidden {list(key[0])}: single epoch {1e3 * m['single']:.2f} ms, stacked epoch "
                   f"{1e3 * m['stacked']:.2f} ms, {stack_ratio[label]:.2f}x the throughput")
 
