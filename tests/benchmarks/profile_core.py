@@ -19,7 +19,7 @@ import time
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from bench_core import N_IN, N_OUT, make_data
+from bench_core import N_IN, N_OUT, make_data, product_rate
 from trainers.fit import TrainConfig, _Stack
 from trainers.mlp import MLPConfig
 
@@ -48,19 +48,6 @@ def describe(op) -> tuple[str, str, float]:
     return name, " ".join(str(a.shape) for a in args), macs
 
 
-def peak_rate(dtype: str) -> float:
-    """Multiply-adds per second of a (64, 65) @ (65, 4096) product, best of 20."""
-    rng = np.random.default_rng(0)
-    a, b = rng.standard_normal((64, 65)).astype(dtype), rng.standard_normal((65, 4096)).astype(dtype)
-    out = np.empty((64, 4096), dtype)
-    best = np.inf
-    for _ in range(20):
-        t0 = time.perf_counter()
-        np.matmul(a, b, out)
-        best = min(best, time.perf_counter() - t0)
-    return 64 * 65 * 4096 / best
-
-
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--hidden", default="64,64", help="hidden widths, comma separated")
@@ -79,7 +66,7 @@ def main() -> None:
         stack.run_epoch()
     n_batches = -(-X.shape[0] // min(args.batch, X.shape[0]))
     step = stack.ops[:len(stack.ops) // n_batches]
-    peak = peak_rate(args.dtype)
+    peak = product_rate(args.dtype)
     print(f"hidden {list(hidden)}, batch {args.batch}, {args.dtype}, K={args.models}; "
           f"large product: {2 * peak / 1e9:.1f} GFLOP/s")
     groups = {"products": 0.0, "forward/backward others": 0.0, "optimizer": 0.0}

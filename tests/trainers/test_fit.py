@@ -13,21 +13,13 @@ import pytest
 from sklearn.datasets import load_diabetes, load_digits
 from sklearn.neural_network import MLPClassifier, MLPRegressor
 from sklearn.preprocessing import StandardScaler
-from threadpoolctl import threadpool_limits
 
 from trainers import losses
 from trainers.fit import STOP_REASONS, TrainConfig, _Stack, fit_mlp, fit_mlp_stacked, train_mlp
 from trainers.mlp import MLPConfig, init_params
 
-pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
-
-
-@pytest.fixture(autouse=True)
-def _one_blas_thread():
-    """Run on one BLAS thread, as the sweep's workers do: small products are fastest there, and the bits of a
-    result depend on the thread count (same seed and thread count give identical results)."""
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = [pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning"),
+              pytest.mark.usefixtures("one_blas_thread")]
 
 
 def _noise(seed=0, n=120, n_in=5, n_out=2):

@@ -3,7 +3,6 @@
 import numpy as np
 import pytest
 from sklearn.neural_network import MLPClassifier, MLPRegressor
-from threadpoolctl import threadpool_limits
 
 from trainers.mlp import (
     ACTIVATIONS,
@@ -18,15 +17,8 @@ from trainers.mlp import (
     unpack_params,
 )
 
-pytestmark = pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning")
-
-
-@pytest.fixture(autouse=True)
-def _one_blas_thread():
-    """Run on one BLAS thread, as the sweep's workers do: small products are fastest there, and the bits of a
-    result depend on the thread count (same seed and thread count give identical results)."""
-    with threadpool_limits(limits=1):
-        yield
+pytestmark = [pytest.mark.filterwarnings("ignore::sklearn.exceptions.ConvergenceWarning"),
+              pytest.mark.usefixtures("one_blas_thread")]
 
 
 def _numeric_grad(f, x, h=1e-6):
