@@ -28,9 +28,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from trainers._price_checks import (
-    BAD_ROWS, DATE_COLUMN, DATE_UNIT, FIX_DATE, REQUIRED_COLUMNS, PriceFileError, Problem, _check_min_rows,
-    _missing_column, _row_problems, _size_problems, _sorted, check_prices,
+from trainers.price_checks import (
+    BAD_ROWS, DATE_COLUMN, DATE_UNIT, FIX_DATE, REQUIRED_COLUMNS, PriceFileError, Problem, check_min_rows,
+    missing_column_problem, check_rows, size_problems, sorted_problems, check_prices,
 )
 
 __all__ = [
@@ -245,10 +245,10 @@ def _resolve_header(header: list[str], header_line: int, columns, ignore_columns
         if wanted in keys:
             position[name] = keys.index(wanted)
         else:
-            structural.append(_missing_column(name, header, _mapped_header(columns, name)))
+            structural.append(missing_column_problem(name, header, _mapped_header(columns, name)))
     for ours, theirs in mapping.items():
         if ours not in position and ours not in REQUIRED_COLUMNS + (DATE_COLUMN,) and theirs not in keys:
-            structural.append(_missing_column(ours, header, _mapped_header(columns, ours)))
+            structural.append(missing_column_problem(ours, header, _mapped_header(columns, ours)))
     if len(set(mapping.values())) < len(mapping):
         structural.append(Problem(f"columns maps two names to one header: {dict(columns)!r}",
                                   "map each header once", column=None))
@@ -272,7 +272,7 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
                  ignore_columns=()) -> tuple[pd.DataFrame, tuple[Problem, ...]]:
     if bad_rows not in BAD_ROWS:
         raise ValueError(f"bad_rows must be one of {BAD_ROWS}, got {bad_rows=!r}")
-    _check_min_rows(min_rows)
+    check_min_rows(min_rows)
     text, problems = _decode(raw)
     if text is None:
         raise PriceFileError(source, problems)
@@ -334,20 +334,20 @@ def _parse_bytes(raw: bytes, source: str, *, columns=None, bad_rows="error", min
                 fix += f", or pass ignore_columns=[{header[j]!r}]"
             row_problems.append(Problem(e, fix, int(lines[i]), date_texts[i] or None, name))
     if structural or not body:   # the row problems found so far are listed too
-        raise PriceFileError(source, _sorted(structural + row_problems + ([] if body else _size_problems(0, 0))))
-    row_problems += _row_problems(dates, values, bad, lines, date_texts)
+        raise PriceFileError(source, sorted_problems(structural + row_problems + ([] if body else size_problems(0, 0))))
+    row_problems += check_rows(dates, values, bad, lines, date_texts)
     order = [c for c in REQUIRED_COLUMNS] + [c for c in values if c not in REQUIRED_COLUMNS]
     frame = pd.DataFrame({c: values[c] for c in order}, index=pd.DatetimeIndex(dates, name=DATE_COLUMN))
     dropped: tuple[Problem, ...] = ()
     if bad_rows == "drop" and row_problems:
         drop = {p.line for p in row_problems}
         frame = frame[~np.isin(lines, list(drop))]
-        dropped, row_problems = tuple(_sorted(row_problems)), []
-    size = _size_problems(len(frame), min_rows)
+        dropped, row_problems = tuple(sorted_problems(row_problems)), []
+    size = size_problems(len(frame), min_rows)
     if bad_rows == "drop" and size and len(frame) == 0 and dropped:
         size = [Problem(f"every row has a problem ({len(dropped)} found; first: {dropped[0]})",
                         "correct the rows, or check that the file holds daily prices")]
-    problems = _sorted(size + row_problems)
+    problems = sorted_problems(size + row_problems)
     if problems:
         raise PriceFileError(source, problems)
     return frame, dropped

@@ -40,6 +40,7 @@ from typing import Callable, Sequence
 import numpy as np
 
 from trainers import losses
+from trainers.config import is_int, is_real
 from trainers.mlp import MLPConfig, Network, decay_mask, init_params, unpack_params
 from trainers.passes import Evaluator, Workspace
 from trainers.optim import OPTIMIZERS, make_optimizer
@@ -48,14 +49,6 @@ __all__ = ["TrainConfig", "EpochRecord", "FitResult", "STOP_REASONS", "TrainingR
            "fit_mlp_stacked"]
 
 STOP_REASONS = ("patience", "max_epochs", "diverged", "stopped")
-
-
-def _is_int(value) -> bool:
-    return isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))
-
-
-def _is_real(value) -> bool:
-    return isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, (bool, np.bool_))
 
 
 @dataclass(frozen=True)
@@ -91,7 +84,7 @@ class TrainConfig:
     def __post_init__(self) -> None:
         for name in ("batch_size", "max_epochs", "patience"):
             value = getattr(self, name)
-            if not _is_int(value) or value < 1:
+            if not is_int(value) or value < 1:
                 raise ValueError(f"{name} must be an integer >= 1, got {name}={value!r}; "
                                  f"set space.{name} in the study file")
             object.__setattr__(self, name, int(value))
@@ -104,7 +97,7 @@ class TrainConfig:
                  "eps": (lambda v: v > 0, "> 0")}
         for name, (ok, text) in rules.items():
             value = getattr(self, name)
-            if not _is_real(value) or not math.isfinite(value) or not ok(value):
+            if not is_real(value) or not math.isfinite(value) or not ok(value):
                 raise ValueError(f"{name} must be a finite number {text}, got {name}={value!r}; "
                                  f"set space.{name} in the study file")
             object.__setattr__(self, name, float(value))

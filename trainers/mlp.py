@@ -1,4 +1,5 @@
-"""The network: configuration, initialisation, the evaluation-mode forward pass, and ``Network``.
+"""The network: initialisation, the evaluation-mode forward pass, and ``Network`` (its configuration,
+``MLPConfig``, is in ``trainers.config`` and exported here too).
 
 Parameters of one network are one flat vector with the biases folded into the weight blocks; the
 layout, and the precompiled training and evaluation passes over it, are in ``trainers.passes``.
@@ -9,12 +10,13 @@ by ``1 / (1 - p)`` in training; evaluation uses no dropout.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import fields
 from typing import Sequence
 
 import numpy as np
 
 from trainers import losses
+from trainers.config import ACTIVATIONS, DTYPES, INITS, TASKS, MLPConfig, fail, is_int
 from trainers.passes import Evaluator, Workspace, layer_shapes, n_params, unpack_params
 
 __all__ = [
@@ -32,94 +34,6 @@ __all__ = [
     "forward",
     "loss_and_grad",
 ]
-
-ACTIVATIONS = ("relu", "tanh", "sigmoid")
-TASKS = ("regression", "classification")
-INITS = ("auto", "he", "glorot")
-DTYPES = ("float64", "float32")
-
-
-def _is_int(value) -> bool:
-    return isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))
-
-
-def _fail(name: str, rule: str, value, fix: str) -> None:
-    raise ValueError(f"{name} must be {rule}, got {name}={value!r}; {fix}")
-
-
-@dataclass(frozen=True)
-class MLPConfig:
-    """Shape and kind of a network. Validated when built.
-
-    Attributes:
-        n_inputs: number of input features (columns of X).
-        n_outputs: regression: number of targets; classification: number of classes (>= 2).
-        hidden: units per hidden layer, input side first; ``()`` is a linear model.
-        activation: hidden activation, one of ``ACTIVATIONS``.
-        task: ``"regression"`` (identity output, mean squared error) or ``"classification"``
-            (softmax output, cross-entropy).
-        init: ``"he"`` (normal, std sqrt(2 / fan_in)), ``"glorot"`` (uniform, bound
-            sqrt(6 / (fan_in + fan_out))) or ``"auto"`` (he for relu, glorot otherwise). Biases start at 0.
-        dropout: probability of dropping a hidden unit in training, 0 <= p < 1.
-        dtype: ``"float64"`` or ``"float32"``.
-    """
-
-    n_inputs: int
-    n_outputs: int
-    hidden: tuple[int, ...] = (32,)
-    activation: str = "relu"
-    task: str = "regression"
-    init: str = "auto"
-    dropout: float = 0.0
-    dtype: str = "float64"
-
-    def __post_init__(self) -> None:
-        if not _is_int(self.n_inputs) or self.n_inputs < 1:
-            _fail("n_inputs", "an integer >= 1", self.n_inputs, "pass the number of feature columns, X.shape[1]")
-        object.__setattr__(self, "n_inputs", int(self.n_inputs))
-        if self.task not in TASKS:
-            _fail("task", f"one of {TASKS}", self.task, "set task in the study file to regression or classification")
-        low = 2 if self.task == "classification" else 1
-        if not _is_int(self.n_outputs) or self.n_outputs < low:
-            _fail("n_outputs", f"an integer >= {low} for task={self.task!r}", self.n_outputs,
-                  "pass the number of targets (regression) or of classes (classification)")
-        object.__setattr__(self, "n_outputs", int(self.n_outputs))
-        hidden = self.hidden
-        if _is_int(hidden):
-            hidden = (hidden,)
-        if isinstance(hidden, (str, bytes)) or not hasattr(hidden, "__iter__"):
-            _fail("hidden", "a sequence of layer widths", self.hidden,
-                  "set space.hidden in the study file, e.g. [64, 64], or [] for a linear model")
-        hidden = tuple(hidden)
-        if not all(_is_int(h) and h >= 1 for h in hidden):
-            _fail("hidden", "a sequence of integers >= 1", self.hidden,
-                  "set space.hidden in the study file, e.g. [64, 64], or [] for a linear model")
-        object.__setattr__(self, "hidden", tuple(int(h) for h in hidden))
-        if self.activation not in ACTIVATIONS:
-            _fail("activation", f"one of {ACTIVATIONS}", self.activation,
-                  "set space.activation in the study file to relu, tanh or sigmoid")
-        if self.init not in INITS:
-            _fail("init", f"one of {INITS}", self.init, "set init to he, glorot or auto")
-        real = isinstance(self.dropout, (int, float, np.floating, np.integer)) and not isinstance(self.dropout, bool)
-        if not real or not 0.0 <= float(self.dropout) < 1.0:
-            _fail("dropout", "a number with 0 <= dropout < 1", self.dropout,
-                  "set space.dropout in the study file to a rate such as 0.1 (0 turns dropout off)")
-        object.__setattr__(self, "dropout", float(self.dropout))
-        if self.dtype not in DTYPES:
-            _fail("dtype", f"one of {DTYPES}", self.dtype, "use float64 (default) or float32")
-
-    @property
-    def init_scheme(self) -> str:
-        """The initialisation actually used: ``"he"`` or ``"glorot"``."""
-        if self.init != "auto":
-            return self.init
-        return "he" if self.activation == "relu" else "glorot"
-
-    @property
-    def widths(self) -> tuple[int, ...]:
-        """Units per layer from input to output: ``(n_inputs, *hidden, n_outputs)``."""
-        return (self.n_inputs, *self.hidden, self.n_outputs)
-
 
 def decay_mask(config: MLPConfig) -> np.ndarray:
     """Vector (P,) with 1 at weights and 0 at biases: L2 weight decay applies to weights only."""
@@ -160,11 +74,11 @@ def init_params(config: MLPConfig, *, rng, n_models: int | None = None) -> np.nd
             raise TypeError(f"rng must be a numpy.random.Generator, got {type(rng).__name__}; "
                             "pass rng=np.random.default_rng(seed)")
         return _init_one(config, rng)
-    if not _is_int(n_models) or n_models < 1:
-        _fail("n_models", "an integer >= 1", n_models, "pass the number of stacked networks")
+    if not is_int(n_models) or n_models < 1:
+        fail("n_models", "an integer >= 1", n_models, "pass the number of stacked networks")
     rngs = [rng] * n_models if isinstance(rng, np.random.Generator) else list(rng)
     if len(rngs) != n_models:
-        _fail("rng", f"a Generator or a sequence of {n_models} Generators", f"<{len(rngs)} generators>",
+        fail("rng", f"a Generator or a sequence of {n_models} Generators", f"<{len(rngs)} generators>",
               "pass one generator per stacked network")
     return np.stack([_init_one(config, r) for r in rngs])
 

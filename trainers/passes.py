@@ -17,12 +17,10 @@ profile_core.py`` times each call.
 from __future__ import annotations
 
 from functools import partial
-from typing import TYPE_CHECKING
 
 import numpy as np
 
-if TYPE_CHECKING:
-    from trainers.mlp import MLPConfig
+from trainers.config import MLPConfig
 
 __all__ = ["layer_shapes", "n_params", "unpack_params", "Workspace", "Evaluator"]
 

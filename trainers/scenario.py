@@ -41,6 +41,7 @@ import pandas as pd
 from scipy.signal import lfilter
 
 from trainers.data import DATE_COLUMN, DATE_UNIT, PriceFileError, check_prices, frame_to_csv_text
+from trainers.volatility import TRADING_DAYS
 
 __all__ = [
     "INSTRUMENTS", "REGIMES", "OVERNIGHT_SHARE", "InstrumentSpec", "INSTRUMENT_SPECS", "Market",
@@ -102,7 +103,6 @@ OVERNIGHT_SHARE = 0.15        # share of the day's diffusive variance in the ove
 MARKET_JUMP_RATE = 1.0        # market-wide jumps per year
 JUMP_MEAN = -0.4              # mean jump in units of its standard deviation (crashes outnumber rallies)
 IMPLIED_PREMIUM = 1.12        # implied over expected volatility (a variance risk premium)
-TRADING_DAYS = 252
 PRICE_DECIMALS = 4
 
 

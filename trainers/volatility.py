@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = [
+    "TRADING_DAYS",
     "ESTIMATORS",
     "close_to_close",
     "daily_variance",
@@ -40,6 +41,7 @@ __all__ = [
     "yang_zhang",
 ]
 
+TRADING_DAYS = 252  # annualisation: sqrt(252 x daily variance) is annual volatility (common practice)
 ESTIMATORS = ("close_to_close", "parkinson", "garman_klass", "rogers_satchell", "yang_zhang")
 PRICE_COLUMNS = ("open", "high", "low", "close")
 LN2 = float(np.log(2.0))

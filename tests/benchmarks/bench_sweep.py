@@ -24,13 +24,13 @@ import numpy as np
 import optuna
 from threadpoolctl import threadpool_limits
 
-from sweep.demo import demo_study_text
-from sweep.engine import inputs_from_record, open_storage, run_study
-from sweep.objective import run_trial, trial_seed
-from sweep.pruning import PruningView
-from sweep.space import params_to_configs
-from sweep.studyfile import set_keys
-from sweep.tracker import Tracker
+from sweep.study.demo import demo_study_text
+from sweep.search import inputs_from_record, open_storage, run_study
+from sweep.search import run_trial, trial_seed
+from sweep.search import PruningView
+from sweep.search import params_to_configs
+from sweep.study import set_keys
+from sweep.record import Tracker
 from trainers.fit import fit_mlp
 from trainers.scenario import write_market_csv
 
@@ -48,7 +48,7 @@ def _study_text(trials: int, epochs: int, workers: int, name: str) -> str:
 def _spec(folder: Path, trials: int, epochs: int, workers: int, name: str):
     path = folder / f"{name}.toml"
     path.write_text(_study_text(trials, epochs, workers, name))
-    from sweep.spec import load_spec
+    from sweep.study import load_spec
 
     return load_spec(path)
 

@@ -1,0 +1,28 @@
+"""The record: one SQLite file holding studies, their data, trials and reviews.
+
+`values` holds the record's value objects (frozen dataclasses, no SQL); `rows` turns them into table
+rows; `schema` owns the tables, their upgrades and write transactions; `Tracker` (`tracker`) is the
+one class that reads and writes a record. `ranking` and `reports` are pure summaries of what a
+tracker returns; `provenance` says where and with what a study was made.
+"""
+
+from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
+from sweep.record.provenance import PACKAGES, code_version, collect_provenance, git_commit, package_versions
+from sweep.record.ranking import SORT_KEYS, baseline_row, rank_rows, trial_row
+from sweep.record.reports import list_report, show_report, top_report
+from sweep.record.schema import SCHEMA_VERSION
+from sweep.record.tracker import Tracker
+from sweep.record.values import (
+    BASELINE_WINDOWS, COMPARISON_WINDOWS, DIRECTIONS, STOP_REASONS, TRIAL_STATES, BaselineRecord,
+    ComparisonRecord, ConfirmRecord, DatasetRecord, EpochRow, HoldoutRecord, NoteRecord, StudyRecord,
+    TrialRecord, check_weights, finite_or_none, plain, utc_now,
+)
+
+__all__ = [
+    "BASELINE_WINDOWS", "COMPARISON_WINDOWS", "DIRECTIONS", "PACKAGES", "SCHEMA_VERSION", "SORT_KEYS",
+    "STOP_REASONS", "TRIAL_STATES", "BaselineRecord", "ComparisonRecord", "ConfirmRecord", "DatasetRecord",
+    "EpochRow", "HoldoutRecord", "NoteRecord", "RecordError", "RecordNotFound", "StudyNotFound", "StudyRecord",
+    "Tracker", "TrialNotFound", "TrialRecord", "baseline_row", "check_weights", "code_version",
+    "collect_provenance", "finite_or_none", "git_commit", "list_report", "package_versions", "plain", "rank_rows", "show_report",
+    "top_report", "trial_row", "utc_now",
+]

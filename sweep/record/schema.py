@@ -1,0 +1,198 @@
+"""The record's tables: the schema, its version, the upgrades of older records, and write transactions.
+
+Our tables carry a ``vs_`` prefix so optuna's RDBStorage tables (``studies``, ``trials``,
+``version_info``, ...) can share the file. Functions here work on the ``sqlite_utils.Database``
+they are handed; ``sweep.record.tracker.Tracker`` is the one class that uses them.
+
+``vs_comparisons`` came after the first schema: it is made on the first comparison recorded (so
+files written before it still open), and a file without it reads as holding no comparisons.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import sqlite3
+from typing import Iterator
+
+from sweep.errors import RecordError
+from sweep.record.values import utc_now
+
+__all__ = [
+    "BUSY_TIMEOUT",
+    "COMPARISONS_SCHEMA",
+    "COMPARISONS_TABLE",
+    "SCHEMA_VERSION",
+    "TABLES",
+    "database_location",
+    "prepare_schema",
+    "write_transaction",
+]
+
+SCHEMA_VERSION = 2  # 2: epochs carry their walk-forward fold
+BUSY_TIMEOUT = 30.0
+_TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
+_TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
+_STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
+_EPOCHS_TABLE = f"""CREATE TABLE IF NOT EXISTS vs_epochs (
+    {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
+    valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});"""
+_SCHEMA = f"""
+CREATE TABLE IF NOT EXISTS vs_meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS vs_datasets (
+    sha256 TEXT PRIMARY KEY, source TEXT NOT NULL, n_rows INTEGER NOT NULL, first_date TEXT,
+    last_date TEXT, columns TEXT NOT NULL, csv_zlib BLOB NOT NULL, csv_sha256 TEXT NOT NULL,
+    dropped TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS vs_studies (
+    name TEXT PRIMARY KEY, spec_text TEXT NOT NULL, spec_hash TEXT NOT NULL, search_hash TEXT NOT NULL,
+    created TEXT NOT NULL, code_version TEXT, git_commit TEXT, packages TEXT NOT NULL, python TEXT,
+    platform TEXT, machine TEXT, dataset_sha256 TEXT NOT NULL REFERENCES vs_datasets (sha256),
+    objective TEXT NOT NULL, direction TEXT NOT NULL, task TEXT NOT NULL, storage TEXT, sampler TEXT,
+    pruner TEXT, settings TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS vs_trials (
+    {_STUDY_FK}, number INTEGER NOT NULL, state TEXT NOT NULL, params TEXT NOT NULL, seed TEXT NOT NULL,
+    best_epoch INTEGER, n_epochs INTEGER, stop_reason TEXT, objective REAL, train_loss REAL,
+    valid_loss REAL, gap REAL, gap_ratio REAL, started TEXT, finished TEXT, seconds REAL, error TEXT,
+    worker TEXT, PRIMARY KEY (study, number));
+CREATE INDEX IF NOT EXISTS vs_trials_state ON vs_trials (study, state);
+{{epochs_table}}
+CREATE TABLE IF NOT EXISTS vs_forecasts (
+    {_TRIAL_KEY}, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
+    PRIMARY KEY (study, number), {_TRIAL_FK});
+CREATE TABLE IF NOT EXISTS vs_weights (
+    {_TRIAL_KEY}, npz BLOB NOT NULL, PRIMARY KEY (study, number), {_TRIAL_FK});
+CREATE TABLE IF NOT EXISTS vs_baselines (
+    {_STUDY_FK}, name TEXT NOT NULL, "window" TEXT NOT NULL, objective REAL, losses TEXT NOT NULL,
+    params TEXT NOT NULL, n_rows INTEGER NOT NULL, n_cols INTEGER NOT NULL, data BLOB NOT NULL,
+    PRIMARY KEY (study, name, "window"));
+CREATE TABLE IF NOT EXISTS vs_holdouts (
+    study TEXT NOT NULL, sequence INTEGER NOT NULL, trial INTEGER NOT NULL, created TEXT NOT NULL,
+    command TEXT NOT NULL, again INTEGER NOT NULL, results TEXT NOT NULL, PRIMARY KEY (study, sequence),
+    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number) ON DELETE CASCADE);
+CREATE TABLE IF NOT EXISTS vs_confirmations (
+    id INTEGER PRIMARY KEY AUTOINCREMENT, study TEXT NOT NULL, trial INTEGER NOT NULL,
+    created TEXT NOT NULL, seeds TEXT NOT NULL, objectives TEXT NOT NULL, gaps TEXT NOT NULL,
+    summary TEXT NOT NULL, extra TEXT NOT NULL,
+    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number) ON DELETE CASCADE);
+CREATE TABLE IF NOT EXISTS vs_notes (
+    id INTEGER PRIMARY KEY AUTOINCREMENT, {_STUDY_FK}, trial INTEGER, created TEXT NOT NULL,
+    text TEXT NOT NULL, author TEXT,
+    FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number));
+""".replace("{epochs_table}", _EPOCHS_TABLE)
+TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
+          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes")
+
+
+COMPARISONS_TABLE = "vs_comparisons"
+COMPARISONS_SCHEMA = f"""
+CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
+    study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE, sequence INTEGER NOT NULL,
+    created TEXT NOT NULL, "window" TEXT NOT NULL, command TEXT NOT NULL, results TEXT NOT NULL,
+    PRIMARY KEY (study, sequence))
+"""
+
+
+
+
+def database_location(db) -> str:
+    """The file behind ``db`` as given to SQLite, or ":memory:"."""
+    for r in db.conn.execute("PRAGMA database_list"):
+        if r[1] == "main":
+            return r[2] or ":memory:"
+    return ":memory:"
+
+
+def prepare_schema(db, location: str, *, create: bool) -> None:
+    """Check that ``db`` is a volsweep record (upgrading an older one in place), or make the tables.
+
+    Raises:
+        RecordError: the database is not a volsweep record (and ``create`` is False, or it holds other
+            tables), is damaged, or was written by a newer version.
+    """
+    try:
+        db.execute("PRAGMA foreign_keys=ON")
+        tables = set(db.table_names())
+    except sqlite3.DatabaseError as exc:
+        raise RecordError(f"{location} is not a volsweep record: {exc}") from exc
+    if "vs_meta" in tables:
+        _check_schema(db, location, tables)
+    elif create:
+        with write_transaction(db, location):
+            db.executescript(_SCHEMA)
+            db.execute(
+                "INSERT OR IGNORE INTO vs_meta (key, value) VALUES ('schema_version', ?), ('created', ?)",
+                [str(SCHEMA_VERSION), utc_now()],
+            )
+    else:
+        listed = ", ".join(sorted(tables)) or "none"
+        raise RecordError(
+            f"{location} is not a volsweep record: it has no vs_meta table (tables there: "
+            f"{listed}); give the .sqlite file that `volsweep run` wrote"
+        )
+
+
+def _check_schema(db, location: str, tables: set[str]) -> None:
+    found = next(db.query("SELECT value FROM vs_meta WHERE key = 'schema_version'"), None)
+    try:
+        version = int(found["value"])
+    except (TypeError, ValueError):
+        raise RecordError(
+            f"{location} is not a volsweep record: vs_meta has no readable schema_version "
+            f"({found!r}); the file may be damaged, use a backup copy"
+        ) from None
+    if version > SCHEMA_VERSION:
+        raise RecordError(
+            f"{location} was written by a newer volsweep (record schema {version}; this version "
+            f"reads up to {SCHEMA_VERSION}); upgrade volsweep to open it"
+        )
+    missing = [t for t in TABLES if t not in tables]
+    if missing:
+        raise RecordError(
+            f"{location} is not a volsweep record: tables missing: {', '.join(missing)}; "
+            "the file may be damaged, use a backup copy"
+        )
+    if version < SCHEMA_VERSION:
+        _upgrade(db, location, version)
+
+
+def _upgrade(db, location: str, version: int) -> None:
+    """Bring a record from an older schema up to this one, in place and in one transaction."""
+    with write_transaction(db, location):
+        if version < 2:  # epochs gain their fold (0: the single split every older study used)
+            db.execute("ALTER TABLE vs_epochs RENAME TO vs_epochs_v1")
+            db.execute(_EPOCHS_TABLE)
+            db.execute(
+                "INSERT INTO vs_epochs (study, number, fold, epoch, train_loss, valid_loss, valid_score, "
+                "seconds) SELECT study, number, 0, epoch, train_loss, valid_loss, valid_score, seconds "
+                "FROM vs_epochs_v1"
+            )
+            db.execute("DROP TABLE vs_epochs_v1")
+        db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
+
+
+@contextlib.contextmanager
+def write_transaction(db, location: str) -> Iterator[None]:
+    """One write transaction that takes the write lock first (``BEGIN IMMEDIATE``); nested calls join it.
+
+    Raises:
+        RecordError: another process held the write lock for longer than ``BUSY_TIMEOUT``.
+    """
+    conn = db.conn
+    if conn.in_transaction:
+        with db.atomic():
+            yield
+        return
+    try:
+        conn.execute("BEGIN IMMEDIATE")
+    except sqlite3.OperationalError as exc:
+        raise RecordError(
+            f"{location} is busy: {exc} (another process held the write lock for "
+            f"{BUSY_TIMEOUT:.0f} s); retry when the other writer finishes"
+        ) from exc
+    try:
+        yield
+    except BaseException:
+        if conn.in_transaction:
+            conn.execute("ROLLBACK")
+        raise
+    else:
+        conn.execute("COMMIT")

@@ -1,0 +1,487 @@
+"""The record: one SQLite file holding studies, their data, trials and reviews.
+
+``Tracker`` is the one class that reads and writes it; with ``sweep/record/schema.py`` (the tables,
+upgrades and transactions) it is the only part of the project that speaks SQL. Our tables carry a
+``vs_`` prefix so optuna's own tables (``studies``, ``trials``, ...) can live in the same file: a
+study copied as its one ``.sqlite`` file is complete.
+
+SQLite keeps NaN as NULL: a NaN trial loss or objective reads back as None, a NaN epoch loss
+as NaN. Arrays read back bit for bit.
+
+Open one ``Tracker`` per process (and per thread). Every write runs in one ``BEGIN IMMEDIATE``
+transaction, so several worker processes can write to one file (WAL, 30 s busy timeout).
+
+Example:
+    >>> tracker = Tracker.memory()
+    >>> tracker.list_studies()
+    []
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import sqlite3
+import zlib
+from pathlib import Path
+from typing import Iterable
+
+import numpy as np
+import sqlite_utils
+
+from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
+from sweep.record import rows
+from sweep.record.schema import (
+    BUSY_TIMEOUT, COMPARISONS_SCHEMA, COMPARISONS_TABLE, database_location, prepare_schema, write_transaction,
+)
+from sweep.record.values import (
+    BASELINE_WINDOWS, COMPARISON_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
+    DatasetRecord, HoldoutRecord, NoteRecord, StudyRecord, TrialRecord, check_weights, utc_now,
+)
+
+__all__ = ["Tracker"]
+
+
+class Tracker:
+    """Reads and writes the record in one SQLite database.
+
+    Args:
+        db: an open ``sqlite_utils.Database`` (use ``Tracker.open`` for a file).
+        create: make the tables if the file has none yet; otherwise a file without them
+            raises ``RecordError``.
+
+    Raises:
+        RecordError: the database is not a volsweep record or was written by a newer version.
+    """
+
+    def __init__(self, db, *, create: bool = True):
+        self.db = db
+        self.location = database_location(db)
+        prepare_schema(db, self.location, create=create)
+
+
+    @classmethod
+    def open(cls, path: str | Path, *, create: bool = True) -> Tracker:
+        """Open (or create) the record file at ``path``: WAL journal, 30 s busy timeout.
+
+        Raises:
+            RecordNotFound: ``path`` does not exist and ``create`` is False.
+            RecordError: the file is not a volsweep record.
+        """
+        path = Path(path)
+        if not path.exists() and not create:
+            raise RecordNotFound(
+                f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one"
+            )
+        if not path.parent.is_dir():
+            raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
+        try:
+            conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT)
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=NORMAL")
+        except sqlite3.DatabaseError as exc:
+            raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
+        try:
+            tracker = cls(sqlite_utils.Database(conn), create=create)
+        except BaseException:
+            conn.close()
+            raise
+        tracker.location = str(path)  # messages name the file as the user gave it
+        return tracker
+
+    @classmethod
+    def memory(cls) -> Tracker:
+        """A new, empty record in memory (for tests and dry runs)."""
+        return cls(sqlite_utils.Database(memory=True))
+
+    def close(self) -> None:
+        """Fold the WAL back into the file (so the .sqlite alone can be copied) and close."""
+        with contextlib.suppress(sqlite3.Error):
+            self.db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+        self.db.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ studies and datasets
+
+    def save_study(self, study: StudyRecord, dataset: DatasetRecord) -> None:
+        """Record a study and its dataset in one transaction (a dataset is stored once per sha256).
+
+        Saving a study again with the same spec and dataset hashes keeps the first record.
+
+        Raises:
+            ValueError: ``study.dataset_sha256`` is not ``dataset.sha256``.
+            RecordError: a study of that name exists with another spec or dataset.
+        """
+        if study.dataset_sha256 != dataset.sha256:
+            raise ValueError(
+                f"study {study.name!r} names dataset {study.dataset_sha256[:12]} but the dataset given is "
+                f"{dataset.sha256[:12]}; pass the DatasetRecord of the price file the study uses"
+            )
+        with self._transaction():
+            old = self._one("SELECT spec_hash, dataset_sha256 FROM vs_studies WHERE name = ?", [study.name])
+            if old is not None:
+                if (old["spec_hash"], old["dataset_sha256"]) != (study.spec_hash, study.dataset_sha256):
+                    raise RecordError(
+                        f"{self.location} already holds a study named {study.name!r} with another spec or "
+                        f"dataset (spec {old['spec_hash'][:12]}, data {old['dataset_sha256'][:12]}); "
+                        "give the new study another name or another record file"
+                    )
+                return
+            if self._one("SELECT 1 AS x FROM vs_datasets WHERE sha256 = ?", [dataset.sha256]) is None:
+                self.db["vs_datasets"].insert(rows.dataset_row(dataset))
+            self.db["vs_studies"].insert(rows.study_row(study))
+
+    def find_study(self, name: str | None = None) -> StudyRecord:
+        """The study called ``name``, or with ``name=None`` the file's only study.
+
+        Raises:
+            StudyNotFound: no such study, no study at all, or several and no name given.
+        """
+        if name is None:
+            names = self._study_names()
+            if not names:
+                raise StudyNotFound(
+                    f"{self.location} holds no study yet; run `volsweep run STUDY.toml` to start one"
+                )
+            if len(names) > 1:
+                raise StudyNotFound(
+                    f"{self.location} holds {len(names)} studies: {', '.join(names)}; name the one you "
+                    f"mean (see `volsweep list {self.location}`)"
+                )
+            name = names[0]
+        self._require_study(name)
+        return rows.row_study(self._one("SELECT * FROM vs_studies WHERE name = ?", [name]))
+
+    def list_studies(self) -> list[dict]:
+        """One summary dict per study, oldest first.
+
+        Keys: ``name``, ``created``, ``objective``, ``direction``, ``n_trials``, ``trials`` (count per
+        state, every state listed), ``best_trial`` and ``best_objective`` (complete trials; None if
+        none), ``dataset`` (the source path), ``dataset_sha256``, ``n_rows``.
+        """
+        counts: dict[str, dict[str, int]] = {}
+        for r in self._all("SELECT study, state, COUNT(*) AS n FROM vs_trials GROUP BY study, state"):
+            counts.setdefault(r["study"], {})[r["state"]] = r["n"]
+        summaries = []
+        for s in self._all(
+            "SELECT s.name, s.created, s.objective, s.direction, s.dataset_sha256, d.source, d.n_rows "
+            "FROM vs_studies s JOIN vs_datasets d ON d.sha256 = s.dataset_sha256 ORDER BY s.created, s.name"
+        ):
+            order = "DESC" if s["direction"] == "maximize" else "ASC"
+            best = self._one(
+                "SELECT number, objective FROM vs_trials WHERE study = ? AND state = 'complete' AND "
+                f"objective IS NOT NULL ORDER BY objective {order}, number LIMIT 1",
+                [s["name"]],
+            )
+            by_state = {state: counts.get(s["name"], {}).get(state, 0) for state in TRIAL_STATES}
+            summaries.append({
+                "name": s["name"], "created": s["created"], "objective": s["objective"],
+                "direction": s["direction"], "n_trials": sum(by_state.values()), "trials": by_state,
+                "best_trial": best["number"] if best else None,
+                "best_objective": best["objective"] if best else None,
+                "dataset": s["source"], "dataset_sha256": s["dataset_sha256"], "n_rows": s["n_rows"],
+            })
+        return summaries
+
+    def load_dataset(self, sha256: str) -> DatasetRecord:
+        """The dataset with this SHA-256, rows included.
+
+        Raises:
+            RecordNotFound: no dataset with that hash in the file.
+            RecordError: the stored rows are damaged (their SHA-256 no longer matches).
+        """
+        found = self._one("SELECT * FROM vs_datasets WHERE sha256 = ?", [sha256])
+        if found is None:
+            raise RecordNotFound(
+                f"no dataset {sha256[:12]}... in {self.location}; `volsweep list {self.location}` "
+                "shows the datasets of its studies"
+            )
+        try:
+            return rows.row_dataset(found)
+        except (ValueError, zlib.error) as exc:
+            raise RecordError(f"{self.location} is damaged: {exc}; use a backup copy of the file") from exc
+
+    # ------------------------------------------------------------------ trials
+
+    def record_trial(self, trial: TrialRecord) -> None:
+        """Insert or replace a trial with its epochs, forecasts and weights, in one transaction.
+
+        The stored trial becomes exactly ``trial``: epochs, forecasts or weights it lacks are removed.
+
+        Raises:
+            StudyNotFound: the study was not saved first (``save_study``).
+        """
+        with self._transaction():
+            self._require_study(trial.study)
+            self.db["vs_trials"].upsert(rows.trial_row(trial), pk=("study", "number"))
+            key = {"study": trial.study, "number": trial.number}
+            for table in ("vs_epochs", "vs_forecasts", "vs_weights"):
+                self.db.execute(f"DELETE FROM {table} WHERE study = ? AND number = ?", [trial.study, trial.number])
+            if trial.epochs:
+                self.db["vs_epochs"].insert_all(rows.epoch_rows(trial))
+            if trial.valid_forecasts is not None:
+                self.db["vs_forecasts"].insert({**key, **rows.array_to_blob(trial.valid_forecasts)})
+            if trial.weights is not None:
+                self.db["vs_weights"].insert({**key, "npz": rows.arrays_to_npz(trial.weights)})
+
+    def load_trials(self, study: str, *, states: Iterable[str] | None = None, with_epochs: bool = False,
+                    with_forecasts: bool = False) -> list[TrialRecord]:
+        """The study's trials in number order, without weights (``load_trial`` gives those).
+
+        Args:
+            study: study name.
+            states: keep only these states (any of "complete", "pruned", "failed", "running").
+            with_epochs: attach each trial's learning curve.
+            with_forecasts: attach each trial's validation forecasts.
+        """
+        self._require_study(study)
+        where, params = "study = ?", [study]
+        if states is not None:
+            states = [states] if isinstance(states, str) else list(states)
+            if not states:
+                return []
+            bad = [s for s in states if s not in TRIAL_STATES]
+            if bad:
+                raise ValueError(f"states must be taken from {', '.join(TRIAL_STATES)}; got {bad!r}")
+            where += f" AND state IN ({', '.join('?' * len(states))})"
+            params += states
+        found = self._all(f"SELECT * FROM vs_trials WHERE {where} ORDER BY number", params)
+        epochs: dict[int, list] = {}
+        if with_epochs:
+            for r in self._all("SELECT * FROM vs_epochs WHERE study = ? ORDER BY number, fold, epoch", [study]):
+                epochs.setdefault(r["number"], []).append(rows.row_epoch(r))
+        forecasts = {}
+        if with_forecasts:
+            for r in self._all("SELECT * FROM vs_forecasts WHERE study = ?", [study]):
+                forecasts[r["number"]] = rows.blob_to_array(r)
+        return [
+            rows.row_trial(r, epochs=epochs.get(r["number"], ()), valid_forecasts=forecasts.get(r["number"]))
+            for r in found
+        ]
+
+    def load_curves(self, study: str, numbers: Iterable[int]) -> dict[int, list[tuple[int, int, float | None]]]:
+        """Validation-score curves of some trials: number -> [(fold, epoch, valid_score), ...] in order.
+
+        Lighter than ``load_trials(with_epochs=True)``: the pruning view of a worker reads only the
+        curves of trials it has not seen yet.
+        """
+        numbers = [int(n) for n in numbers]
+        curves: dict[int, list[tuple[int, int, float | None]]] = {n: [] for n in numbers}
+        for start in range(0, len(numbers), 500):  # SQLite limits the number of bound parameters
+            chunk = numbers[start:start + 500]
+            sql = (f"SELECT number, fold, epoch, valid_score FROM vs_epochs WHERE study = ? "
+                   f"AND number IN ({', '.join('?' * len(chunk))}) ORDER BY number, fold, epoch")
+            for r in self._all(sql, [study, *chunk]):
+                curves[r["number"]].append((r["fold"], r["epoch"], r["valid_score"]))
+        return curves
+
+    def load_trial(self, study: str, number: int) -> TrialRecord:
+        """One trial in full: epochs, validation forecasts and weights.
+
+        Raises:
+            StudyNotFound, TrialNotFound: no such study or trial.
+        """
+        found = self._trial_row(study, number)
+        key = [study, int(number)]
+        epochs = [rows.row_epoch(r) for r in
+                  self._all("SELECT * FROM vs_epochs WHERE study = ? AND number = ? ORDER BY fold, epoch", key)]
+        blob = self._one("SELECT * FROM vs_forecasts WHERE study = ? AND number = ?", key)
+        return rows.row_trial(found, epochs=epochs, valid_forecasts=None if blob is None else rows.blob_to_array(blob),
+                              weights=self.load_weights(study, number))
+
+    def save_weights(self, study: str, number: int, arrays: dict[str, np.ndarray]) -> None:
+        """Store (or replace) a recorded trial's network arrays, e.g. ``Network.to_arrays()``."""
+        arrays = check_weights("weights", arrays)
+        with self._transaction():
+            self._trial_row(study, number)
+            self.db["vs_weights"].upsert(
+                {"study": study, "number": int(number), "npz": rows.arrays_to_npz(arrays)}, pk=("study", "number")
+            )
+
+    def load_weights(self, study: str, number: int) -> dict[str, np.ndarray] | None:
+        """A trial's network arrays, or None if none were stored (loaded with ``allow_pickle=False``)."""
+        self._trial_row(study, number)
+        found = self._one("SELECT npz FROM vs_weights WHERE study = ? AND number = ?", [study, int(number)])
+        return None if found is None else rows.npz_to_arrays(found["npz"])
+
+    def mark_interrupted(self, study: str, numbers: Iterable[int] | None = None, *,
+                         reason: str | None = None) -> list[int]:
+        """Turn trials still "running" (their worker was killed) into "failed", with error text.
+
+        Args:
+            study: study name.
+            numbers: the trials to check; None checks every running trial of the study.
+            reason: error text to record; a default names the time.
+
+        Returns:
+            The numbers that were running and are now failed (others are left alone).
+        """
+        now = utc_now()
+        text = reason or f"interrupted: the worker stopped before the trial finished (found running at {now})"
+        with self._transaction():
+            self._require_study(study)
+            running = [r["number"] for r in self._all(
+                "SELECT number FROM vs_trials WHERE study = ? AND state = 'running' ORDER BY number", [study])]
+            if numbers is not None:
+                wanted = {int(n) for n in numbers}
+                running = [n for n in running if n in wanted]
+            for number in running:
+                self.db.execute(
+                    "UPDATE vs_trials SET state = 'failed', stop_reason = 'error', error = ?, "
+                    "finished = COALESCE(finished, ?) WHERE study = ? AND number = ?",
+                    [text, now, study, number],
+                )
+        return running
+
+    # ------------------------------------------------------------------ reviews
+
+    def record_baselines(self, records: list[BaselineRecord]) -> None:
+        """Insert or replace baselines (key: study, name, window) in one transaction."""
+        if not records:
+            return
+        with self._transaction():
+            for study in sorted({r.study for r in records}):
+                self._require_study(study)
+            self.db["vs_baselines"].upsert_all(
+                [rows.baseline_row(r) for r in records], pk=("study", "name", "window")
+            )
+
+    def load_baselines(self, study: str, window: str | None = None) -> list[BaselineRecord]:
+        """A study's baselines, by window then name; ``window`` "valid" or "test" keeps one window."""
+        self._require_study(study)
+        if window is not None and window not in BASELINE_WINDOWS:
+            raise ValueError(f"window must be one of {', '.join(BASELINE_WINDOWS)} or None; got {window!r}")
+        sql, params = 'SELECT * FROM vs_baselines WHERE study = ?', [study]
+        if window is not None:
+            sql, params = sql + ' AND "window" = ?', params + [window]
+        return [rows.row_baseline(r) for r in self._all(sql + ' ORDER BY "window" DESC, name', params)]
+
+    def record_holdout(self, record: HoldoutRecord) -> HoldoutRecord:
+        """Add a holdout result (never overwritten); returns it with its ``sequence`` filled in.
+
+        Raises:
+            RecordError: a holdout with that sequence number is already recorded.
+        """
+        with self._transaction():
+            self._trial_row(record.study, record.trial)
+            last = self._one("SELECT MAX(sequence) AS n FROM vs_holdouts WHERE study = ?", [record.study])["n"] or 0
+            sequence = last + 1 if record.sequence is None else record.sequence
+            if sequence <= last and self._one("SELECT 1 AS x FROM vs_holdouts WHERE study = ? AND sequence = ?",
+                                              [record.study, sequence]):
+                raise RecordError(
+                    f"holdout #{sequence} of study {record.study!r} is already recorded and is never "
+                    "overwritten; leave sequence=None to add the next one"
+                )
+            stored = dataclasses.replace(record, sequence=sequence)
+            self.db["vs_holdouts"].insert(rows.to_row(stored))
+        return stored
+
+    def load_holdouts(self, study: str, trial: int | None = None) -> list[HoldoutRecord]:
+        """The study's holdout results in sequence order (optionally one trial's)."""
+        return [rows.from_row(HoldoutRecord, r, again=bool(r["again"]))
+                for r in self._review_rows("vs_holdouts", study, trial, "sequence")]
+
+    def record_confirmation(self, record: ConfirmRecord) -> None:
+        """Add a confirmation (a trial retrained on fresh seeds); earlier ones are kept."""
+        with self._transaction():
+            self._trial_row(record.study, record.trial)
+            self.db["vs_confirmations"].insert(rows.to_row(record))
+
+    def load_confirmations(self, study: str, trial: int | None = None) -> list[ConfirmRecord]:
+        """The study's confirmations, oldest first (optionally one trial's)."""
+        return [rows.from_row(ConfirmRecord, r) for r in self._review_rows("vs_confirmations", study, trial, "id")]
+
+    def record_comparison(self, record: ComparisonRecord) -> ComparisonRecord:
+        """Add a comparison result (never overwritten); returns it with its ``sequence`` filled in.
+
+        Raises:
+            StudyNotFound: the study is not in the record.
+            RecordError: a comparison with that sequence number is already recorded.
+        """
+        with self._transaction():
+            self._require_study(record.study)
+            self.db.execute(COMPARISONS_SCHEMA)
+            last = self._one(f"SELECT MAX(sequence) AS n FROM {COMPARISONS_TABLE} WHERE study = ?",
+                             [record.study])["n"] or 0
+            sequence = last + 1 if record.sequence is None else record.sequence
+            if self._one(f"SELECT 1 AS x FROM {COMPARISONS_TABLE} WHERE study = ? AND sequence = ?",
+                         [record.study, sequence]):
+                raise RecordError(
+                    f"comparison #{sequence} of study {record.study!r} is already recorded and is never "
+                    "overwritten; leave sequence=None to add the next one"
+                )
+            stored = dataclasses.replace(record, sequence=sequence)
+            self.db[COMPARISONS_TABLE].insert(rows.to_row(stored))
+        return stored
+
+    def load_comparisons(self, study: str, window: str | None = None) -> list[ComparisonRecord]:
+        """The study's comparison results in sequence order; ``window`` "valid" or "test" keeps one window."""
+        self._require_study(study)
+        if window is not None and window not in COMPARISON_WINDOWS:
+            raise ValueError(f"window must be one of {', '.join(COMPARISON_WINDOWS)} or None; got {window!r}")
+        if COMPARISONS_TABLE not in self.db.table_names():
+            return []
+        sql, params = f"SELECT * FROM {COMPARISONS_TABLE} WHERE study = ?", [study]
+        if window is not None:
+            sql, params = sql + ' AND "window" = ?', params + [window]
+        return [rows.from_row(ComparisonRecord, r) for r in self._all(sql + " ORDER BY sequence", params)]
+
+    def add_note(self, note: NoteRecord) -> None:
+        """Add a decision note; notes are never overwritten or removed."""
+        with self._transaction():
+            if note.trial is None:
+                self._require_study(note.study)
+            else:
+                self._trial_row(note.study, note.trial)
+            self.db["vs_notes"].insert(rows.to_row(note))
+
+    def load_notes(self, study: str, trial: int | None = None) -> list[NoteRecord]:
+        """The study's notes, oldest first (optionally only those on one trial)."""
+        return [rows.from_row(NoteRecord, r) for r in self._review_rows("vs_notes", study, trial, "id")]
+
+    def _review_rows(self, table: str, study: str, trial: int | None, order: str) -> list[dict]:
+        self._require_study(study)
+        if trial is None:
+            return self._all(f"SELECT * FROM {table} WHERE study = ? ORDER BY {order}", [study])
+        return self._all(f"SELECT * FROM {table} WHERE study = ? AND trial = ? ORDER BY {order}", [study, int(trial)])
+
+    # ------------------------------------------------------------------ helpers
+
+    def _transaction(self) -> contextlib.AbstractContextManager[None]:
+        return write_transaction(self.db, self.location)
+
+    def _one(self, sql: str, params: Iterable = ()) -> dict | None:
+        return next(self.db.query(sql, list(params)), None)
+
+    def _all(self, sql: str, params: Iterable = ()) -> list[dict]:
+        return list(self.db.query(sql, list(params)))
+
+    def _study_names(self) -> list[str]:
+        return [r["name"] for r in self._all("SELECT name FROM vs_studies ORDER BY created, name")]
+
+    def _require_study(self, name: str) -> None:
+        if self._one("SELECT 1 AS x FROM vs_studies WHERE name = ?", [name]) is None:
+            names = self._study_names()
+            listed = ", ".join(names) if names else "none yet"
+            raise StudyNotFound(
+                f"no study named {name!r} in {self.location}; studies there: {listed} "
+                f"(see `volsweep list {self.location}`)"
+            )
+
+    def _trial_row(self, study: str, number: int) -> dict:
+        self._require_study(study)
+        found = self._one("SELECT * FROM vs_trials WHERE study = ? AND number = ?", [study, int(number)])
+        if found is None:
+            span = self._one("SELECT COUNT(*) AS n, MIN(number) AS lo, MAX(number) AS hi FROM vs_trials "
+                             "WHERE study = ?", [study])
+            held = f"{span['n']} trials, numbers {span['lo']}-{span['hi']}" if span["n"] else "no trials yet"
+            raise TrialNotFound(
+                f"study {study!r} in {self.location} has no trial {number} ({held}); "
+                f"see `volsweep list {self.location}`"
+            )
+        return found

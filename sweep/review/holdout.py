@@ -1,0 +1,69 @@
+"""Holdout: score one trial and every baseline on the test window, once, and record that it was done.
+
+A second look is refused unless asked for (``again``), and then recorded beside the first.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sweep.errors import HoldoutAlreadyUsed, ReviewError
+from sweep.record import HoldoutRecord, Tracker, utc_now
+from sweep.review.context import network_for, open_study, trial_key, window_forecasts
+from sweep.study import StudyInputs, window_losses
+from trainers import metrics
+
+__all__ = ["holdout_trial"]
+
+
+def _model_losses(inputs: StudyInputs, truth_window: str, forecasts: np.ndarray) -> dict:
+    if inputs.task == "classification":
+        labels = inputs.labels[truth_window]
+        return {"deviance": float(metrics.deviance(labels, forecasts)),
+                "accuracy": float(metrics.accuracy(labels, forecasts))}
+    return window_losses(inputs.truth[truth_window], forecasts)
+
+
+def _holdout_summary(h) -> dict:
+    return {"sequence": h.sequence, "trial": h.trial, "created": h.created, "again": h.again,
+            "command": h.command, "results": h.results}
+
+
+def holdout_trial(tracker: Tracker, number: int, *, study: str | None = None, again: bool = False,
+                  command: str = "volsweep holdout") -> dict:
+    """Score one trial and every baseline on the test window, once, and record that it was done.
+
+    The network is the trial's stored weights, or retrained from the record where they are missing
+    (``network`` in the result says which). Regression results carry qlike, mse_log, mse, mae and
+    mz_r2 (``sweep.study.window_losses``); classification deviance and accuracy.
+
+    Raises:
+        HoldoutAlreadyUsed: the study's test window was used before and ``again`` is False; the error's
+            ``previous`` lists the earlier results. ReviewError: the trial is not complete.
+    """
+    ctx = open_study(tracker, study)
+    previous = tracker.load_holdouts(ctx.name)
+    if previous and not again:
+        first = previous[0]
+        raise HoldoutAlreadyUsed(
+            f"the test window of study {ctx.name!r} was already used on {first.created[:10]} for trial "
+            f"{first.trial}; --again records a repeat, kept beside the first",
+            [_holdout_summary(h) for h in previous])
+    trial = tracker.load_trial(ctx.name, number)
+    if trial.state != "complete":
+        raise ReviewError(f"trial {number} of study {ctx.name!r} is {trial.state}; the holdout scores a complete "
+                          "trial: pick one from `volsweep top`")
+    network, source = network_for(ctx, trial)
+    results = {trial_key(number): _model_losses(ctx.inputs, "test", window_forecasts(ctx.inputs, network, "test"))}
+    for b in tracker.load_baselines(ctx.name, "test"):
+        results[b.name] = _model_losses(ctx.inputs, "test", b.forecasts)
+    stored = tracker.record_holdout(HoldoutRecord(study=ctx.name, trial=number, created=utc_now(),
+                                                  command=command, again=bool(previous), results=results))
+    objective = ctx.record.objective
+    order = sorted(results, key=lambda k: (results[k].get(objective) is None, results[k].get(objective)))
+    dates = ctx.inputs.dates("test")
+    return {"study": ctx.name, "trial": number, "sequence": stored.sequence, "created": stored.created,
+            "again": stored.again, "network": source, "objective": objective, "results": results,
+            "order": order, "window": {"rows": int(len(dates)), "first": dates[0].date().isoformat(),
+                                       "last": dates[-1].date().isoformat()},
+            "previous": [_holdout_summary(h) for h in previous]}

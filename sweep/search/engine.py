@@ -1,0 +1,244 @@
+"""The optuna study of a volsweep study: storage, sampler and pruner from the spec, worker processes, resume.
+
+A run goes: spec -> price file (validated, fingerprinted) -> record (study, dataset copy, baselines, once)
+-> optuna study -> workers. Each worker is a process with one BLAS thread; it rebuilds the study's arrays
+from the copy of the rows kept in the record, so every worker trains on exactly what was recorded.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import optuna
+from optuna.trial import TrialState
+
+from sweep.errors import StudyChanged, StudyNotFound
+from sweep.record import BaselineRecord, DatasetRecord, StudyRecord, Tracker, TrialRecord, collect_provenance
+from sweep.search.objective import trial_seed
+from sweep.search.storage import default_storage_path, open_storage
+from sweep.search.workers import FINISHED_STATES, WorkerPlan, count_states, run_inline, run_processes
+from sweep.study import (
+    StudyInputs, StudySpec, compute_baselines, diff_specs, load_study_prices, prepare_folds, spec_from_text,
+)
+from trainers.data import PriceData, frame_to_csv_text
+
+__all__ = ["RunSummary", "default_record_path", "run_study"]
+
+
+@dataclass
+class RunSummary:
+    """What a run did, for the CLI to print."""
+
+    study: str
+    record_path: Path
+    storage: str
+    n_target: int
+    counts: dict = field(default_factory=dict)
+    best: float | None = None
+    interrupted: bool = False
+    resumed: bool = False
+    recovered: list = field(default_factory=list)
+    seconds: float = 0.0
+
+
+def default_record_path(spec_path: Path) -> Path:
+    """`studies/x.toml` -> `studies/x.sqlite`."""
+    return spec_path.with_suffix(".sqlite")
+
+
+def _create_study(tracker: Tracker, spec: StudySpec, price_data: PriceData, storage_url: str) -> None:
+    folds = prepare_folds(spec, price_data.frame)
+    frame = price_data.frame
+    dataset = DatasetRecord(
+        sha256=price_data.sha256,
+        source=str(price_data.source),
+        n_rows=len(frame),
+        first_date=frame.index[0].date().isoformat(),
+        last_date=frame.index[-1].date().isoformat(),
+        columns=list(frame.columns),
+        csv_text=frame_to_csv_text(frame),
+        dropped=[str(p) for p in price_data.dropped],
+    )
+    prov = collect_provenance()
+    study = StudyRecord(
+        name=spec.study.name,
+        spec_text=spec.text,
+        spec_hash=spec.spec_hash(),
+        search_hash=spec.search_hash(),
+        dataset_sha256=price_data.sha256,
+        objective=spec.study.objective,
+        direction="minimize",
+        task=spec.target.task,
+        storage=storage_url,
+        sampler=spec.search.sampler,
+        pruner=spec.search.pruner,
+        settings=_window_settings(folds),
+        **prov,
+    )
+    baselines = [
+        BaselineRecord(
+            study=spec.study.name,
+            name=b.name,
+            window=b.window,
+            objective=b.objective,
+            losses=b.losses,
+            params=b.params,
+            forecasts=b.forecasts,
+        )
+        for b in compute_baselines(spec, folds)
+    ]
+    tracker.save_study(study, dataset)
+    tracker.record_baselines(baselines)
+
+
+def _window_settings(folds: list[StudyInputs]) -> dict:
+    """Rows per window, as the board's header shows them; with folds, every fold's too."""
+    sizes = [{w: len(getattr(f.windows, w)) for w in ("train", "valid", "test")} for f in folds]
+    if len(sizes) == 1:
+        return {"windows": sizes[0]}
+    return {"windows": {"train": sizes[-1]["train"], "valid": sum(s["valid"] for s in sizes),
+                        "test": sizes[-1]["test"]}, "folds": sizes}
+
+
+def _check_unchanged(old: StudyRecord, spec: StudySpec, sha256: str) -> None:
+    problems = []
+    if old.dataset_sha256 != sha256:
+        problems.append(f"data: the price file's SHA-256 changed ({old.dataset_sha256[:12]} -> {sha256[:12]})")
+    if old.search_hash != spec.search_hash():
+        old_spec = spec_from_text(old.spec_text).to_dict()
+        problems.extend(diff_specs(old_spec, spec.to_dict()) or ["search settings changed"])
+    if problems:
+        lines = "\n  ".join(problems)
+        raise StudyChanged(
+            f"study {spec.study.name!r} was recorded with different settings:\n  {lines}\n"
+            "restore the study file, or start a new study with --name NEW_NAME"
+        )
+
+
+def _recover_orphans(study: optuna.Study, storage, tracker: Tracker, spec: StudySpec, reason: str) -> list[int]:
+    """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again.
+
+    A worker that died after writing a trial's record but before telling optuna left a finished trial:
+    optuna is then told what the record says, and nothing is run again.
+    """
+    numbers = []
+    recorded = {r.number: r for r in tracker.load_trials(spec.study.name, states=("complete", "pruned"))}
+    for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        done = recorded.get(t.number)
+        if done is not None:
+            if done.state == "complete" and done.objective is not None:
+                study.tell(t.number, done.objective)
+            else:
+                study.tell(t.number, state=TrialState.PRUNED)
+            continue
+        # marked like an interrupted trial: it does not use up the budget, its retry does
+        study_id = storage.get_study_id_from_name(study.study_name)
+        storage.set_trial_user_attr(storage.get_trial_id_from_study_id_trial_number(study_id, t.number),
+                                    "interrupted", True)
+        study.tell(t.number, state=TrialState.FAIL)
+        numbers.append(t.number)
+        tracker.record_trial(
+            TrialRecord(
+                study=spec.study.name,
+                number=t.number,
+                state="failed",
+                params=dict(t.params),
+                seed=trial_seed(spec.study.seed, t.number),
+                best_epoch=0,
+                n_epochs=len(t.intermediate_values),
+                stop_reason="error",
+                started=t.datetime_start.isoformat() if t.datetime_start else None,
+                error=f"{reason}; its settings were queued again and run next",
+            )
+        )
+        if t.params:
+            study.enqueue_trial(dict(t.params), user_attrs={"retry_of": t.number}, skip_if_exists=False)
+    return numbers
+
+
+def _n_finished(study: optuna.Study) -> int:
+    return sum(
+        1
+        for t in study.get_trials(deepcopy=False, states=FINISHED_STATES)
+        if not t.user_attrs.get("interrupted")
+    )
+
+
+def run_study(
+    spec: StudySpec,
+    *,
+    record_path: Path,
+    storage: str | None = None,
+    n_trials: int | None = None,
+    n_workers: int | None = None,
+    on_event: Callable[[object, dict], None] | None = None,
+) -> RunSummary:
+    """Create or resume a study and run its trials.
+
+    Args:
+        spec: the parsed study file.
+        record_path: the SQLite record (created if missing).
+        storage: optuna storage URL or journal path; default a journal beside the record.
+        n_trials: total trials the study should reach (default the spec's).
+        n_workers: worker processes (default the spec's); 1 runs in this process.
+        on_event: called with each TrialOutcome (or a crash tuple) and the current counts.
+
+    Returns:
+        A RunSummary.
+
+    Raises:
+        DataError, StudyChanged: nothing is run or written in those cases.
+    """
+    t0 = time.perf_counter()
+    record_path = Path(record_path)
+    storage_url = storage or str(default_storage_path(record_path))
+    n_target = int(n_trials if n_trials is not None else spec.study.trials)
+    n_workers = int(n_workers if n_workers is not None else spec.study.workers)
+    price_data = load_study_prices(spec)
+
+    tracker = Tracker.open(record_path)
+    try:
+        old = tracker.find_study(spec.study.name)
+    except StudyNotFound:
+        old = None
+    if old is not None:
+        _check_unchanged(old, spec, price_data.sha256)
+        storage_url = storage or old.storage or storage_url
+    else:
+        _create_study(tracker, spec, price_data, storage_url)
+
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    storage_object = open_storage(storage_url)
+    study = optuna.create_study(
+        study_name=spec.study.name,
+        storage=storage_object,
+        direction="minimize",
+        load_if_exists=True,
+    )
+    summary = RunSummary(spec.study.name, record_path, storage_url, n_target, resumed=old is not None)
+    summary.recovered = _recover_orphans(
+        study, storage_object, tracker, spec, "the worker running this trial stopped before it finished"
+    )
+    remaining = max(0, n_target - _n_finished(study))
+    if remaining:
+        plan = WorkerPlan(str(record_path), storage_url, spec.study.name, 0)
+        try:
+            if n_workers <= 1:
+                run_inline(plan, remaining, study, on_event)
+            else:
+                run_processes(plan, remaining, n_workers, study, on_event)
+        except KeyboardInterrupt:
+            summary.interrupted = True
+        summary.recovered += _recover_orphans(
+            study, storage_object, tracker, spec, "the worker running this trial stopped before it finished"
+        )
+    summary.counts = count_states(study)
+    completed = study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
+    summary.best = min((t.value for t in completed), default=None)
+    summary.seconds = time.perf_counter() - t0
+    return summary
+
+

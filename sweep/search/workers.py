@@ -1,0 +1,199 @@
+"""Worker processes of a run: each trains trials of one study until the study's budget is used.
+
+`run_inline` trains in this process; `run_processes` trains here and in spawned processes, each with
+one BLAS thread (threadpoolctl). Every worker rebuilds the study's arrays from the copy of the rows
+kept in the record (`folds_from_record`), so every worker trains on exactly what was recorded.
+"""
+
+from __future__ import annotations
+
+import multiprocessing as mp
+import queue
+import signal
+import threading
+from dataclasses import dataclass
+from typing import Callable
+
+import optuna
+from optuna.trial import TrialState
+from threadpoolctl import threadpool_limits
+
+from sweep.record import StudyRecord, Tracker
+from sweep.search.objective import run_trial
+from sweep.search.pruning import PruningView
+from sweep.search.storage import make_pruner, make_sampler, open_storage, percentile_rule
+from sweep.study import StudyInputs, StudySpec, prepare_folds, spec_from_text
+from trainers.data import read_prices_csv_text
+
+__all__ = ["FINISHED_STATES", "POLL_SECONDS", "WorkerPlan", "count_states", "folds_from_record", "inputs_from_record", "run_inline",
+           "run_processes"]
+
+POLL_SECONDS = 0.2
+FINISHED_STATES = (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)
+
+
+def folds_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, list[StudyInputs]]:
+    """Rebuild a study's spec and the arrays of every fold from the record alone (no price file needed)."""
+    spec = spec_from_text(study.spec_text, name=study.name)
+    dataset = tracker.load_dataset(study.dataset_sha256)
+    frame = read_prices_csv_text(dataset.csv_text)
+    return spec, prepare_folds(spec, frame)
+
+
+def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec, StudyInputs]:
+    """The spec and the final model's arrays (the single split, or the latest fold) from the record."""
+    spec, folds = folds_from_record(tracker, study)
+    return spec, folds[-1]
+
+
+def count_states(study: optuna.Study) -> dict:
+    """Finished trials of the optuna study by state: complete, pruned, failed."""
+    counts = {"complete": 0, "pruned": 0, "failed": 0}
+    for t in study.get_trials(deepcopy=False, states=FINISHED_STATES):
+        key = {TrialState.COMPLETE: "complete", TrialState.PRUNED: "pruned"}.get(t.state, "failed")
+        counts[key] += 1
+    return counts
+
+
+@dataclass(frozen=True)
+class WorkerPlan:
+    record_path: str
+    storage_url: str
+    study_name: str
+    worker: int
+
+
+def _limit_threads():
+    return threadpool_limits(limits=1)
+
+
+def _worker_loop(plan: WorkerPlan, claim: Callable[[], bool], stop, report) -> None:
+    tracker = Tracker.open(plan.record_path, create=False)
+    study_record = tracker.find_study(plan.study_name)
+    spec, folds = folds_from_record(tracker, study_record)
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    study = optuna.load_study(
+        study_name=plan.study_name,
+        storage=open_storage(plan.storage_url),
+        sampler=make_sampler(spec, plan.worker),
+    )
+    view = PruningView(make_pruner(spec), rule=percentile_rule(spec), epochs_per_fold=spec.training.max_epochs)
+    while not stop.is_set() and claim():
+        outcome = run_trial(study, spec, folds, tracker, view, stop=stop)
+        report(outcome)
+        if outcome.state == "interrupted":
+            raise KeyboardInterrupt
+
+
+def _claim_slot(slots) -> bool:
+    """Take one trial from the shared budget; False when none is left."""
+    with slots.get_lock():
+        if slots.value <= 0:
+            return False
+        slots.value -= 1
+        return True
+
+
+def _worker_main(plan: WorkerPlan, slots, stop, events) -> None:
+    """Entry point of one worker process."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the main process decides when to stop
+    _limits = _limit_threads()  # noqa: F841  (kept alive for the life of the process)
+    try:
+        _worker_loop(plan, lambda: _claim_slot(slots), stop, events.put)
+    except KeyboardInterrupt:
+        return
+    except Exception as exc:  # a crash outside a trial: tell the main process, then end
+        events.put(("crash", plan.worker, f"{type(exc).__name__}: {exc}"))
+        raise
+
+
+class _Flag:
+    def __init__(self):
+        self.value = False
+
+    def is_set(self) -> bool:
+        return self.value
+
+    def set(self) -> None:
+        self.value = True
+
+
+def run_inline(plan: WorkerPlan, remaining: int, study: optuna.Study, on_event) -> None:
+    """Train `remaining` trials in this process, one BLAS thread."""
+    left = [remaining]
+    stop = _Flag()
+
+    def claim() -> bool:
+        if left[0] <= 0:
+            return False
+        left[0] -= 1
+        return True
+
+    def report(outcome):
+        if on_event:
+            on_event(outcome, count_states(study))
+
+    with _limit_threads():
+        _worker_loop(plan, claim, stop, report)
+
+
+def run_processes(plan: WorkerPlan, remaining: int, n_workers: int, study: optuna.Study, on_event) -> None:
+    """Run trials in `n_workers` processes: this one and `n_workers - 1` spawned workers.
+
+    The main process trains too, so the workers' start-up (imports, rebuilding the arrays) overlaps
+    with useful work; a listener thread passes the workers' outcomes to `on_event` meanwhile.
+    """
+    ctx = mp.get_context("spawn")
+    slots = ctx.Value("i", remaining)
+    stop = ctx.Event()
+    events = ctx.Queue()
+    procs = []
+    for w in range(1, min(n_workers, remaining)):
+        p = ctx.Process(
+            target=_worker_main,
+            args=(WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, w),
+                  slots, stop, events),
+            name=f"volsweep-worker-{w}",
+            daemon=True,
+        )
+        p.start()
+        procs.append(p)
+    lock = threading.Lock()
+    listening = threading.Event()
+    listening.set()
+
+    def deliver(event) -> None:
+        if on_event:
+            with lock:
+                on_event(event, count_states(study))
+
+    def listen() -> None:
+        while listening.is_set() or not events.empty():
+            try:
+                deliver(events.get(timeout=POLL_SECONDS))
+            except queue.Empty:
+                continue
+
+    listener = threading.Thread(target=listen, name="volsweep-events", daemon=True)
+    listener.start()
+    try:
+        with _limit_threads():
+            _worker_loop(plan, lambda: _claim_slot(slots), stop, deliver)
+        while any(p.is_alive() for p in procs):
+            for p in procs:
+                p.join(timeout=POLL_SECONDS)
+    except KeyboardInterrupt:
+        stop.set()
+        for p in procs:
+            p.join(timeout=60)
+        raise
+    finally:
+        for p in procs:
+            p.join(timeout=5)
+            if p.is_alive():
+                p.terminate()
+        listening.clear()
+        listener.join(timeout=5)
+        for w, p in enumerate(procs, start=1):
+            if p.exitcode not in (0, None) and not stop.is_set():
+                deliver(("crash", w, f"the worker process ended with exit code {p.exitcode}"))
