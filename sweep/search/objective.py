@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 import optuna
 
-from sweep.record import EpochRow, TrialRecord, Tracker
+from sweep.record import EpochRow, Tracker, TrialRecord, finite_or_none
 from sweep.search.pruning import PruningView
 from sweep.study import SETTINGS, StudyInputs, StudySpec, TrainingSection, fold_mean, suggest_params
 from trainers.fit import FitResult, TrainConfig, TrainingRun, train_mlp
@@ -45,13 +45,6 @@ def trial_seed(study_seed: int, number: int) -> list[int]:
 
 def _now() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
-
-
-def _finite_or_none(value) -> float | None:
-    if value is None:
-        return None
-    value = float(value)
-    return value if np.isfinite(value) else None
 
 
 def params_to_configs(params: Mapping[str, Any], *, n_inputs: int, n_outputs: int, task: str,
@@ -133,9 +126,9 @@ def _aggregate(results: list[FitResult], state: str) -> dict:
     the best epoch and stop reason are those of the last fold run.
     """
     last = results[-1]
-    objective = [_finite_or_none(r.valid_score) for r in results]
-    train_loss = [_finite_or_none(r.train_loss) for r in results]
-    valid_loss = [_finite_or_none(r.valid_loss) for r in results]
+    objective = [finite_or_none(r.valid_score) for r in results]
+    train_loss = [finite_or_none(r.train_loss) for r in results]
+    valid_loss = [finite_or_none(r.valid_loss) for r in results]
 
     def mean(values):
         return None if any(v is None for v in values) else fold_mean(values)
@@ -149,10 +142,10 @@ def _aggregate(results: list[FitResult], state: str) -> dict:
         valid_loss=mean(valid_loss),
     )
     if len(results) == 1:
-        fields.update(gap=_finite_or_none(last.gap), gap_ratio=_finite_or_none(last.gap_ratio))
+        fields.update(gap=finite_or_none(last.gap), gap_ratio=finite_or_none(last.gap_ratio))
     elif fields["train_loss"] is not None and fields["valid_loss"] is not None:
         fields.update(gap=fields["valid_loss"] - fields["train_loss"],
-                      gap_ratio=_finite_or_none(fields["valid_loss"] / fields["train_loss"]))
+                      gap_ratio=finite_or_none(fields["valid_loss"] / fields["train_loss"]))
     return fields
 
 
@@ -166,7 +159,7 @@ def _trial_record(spec: StudySpec, trial_number, params, seed, state, results, s
                 epoch=int(e.index),
                 train_loss=float(e.train_loss),
                 valid_loss=float(e.valid_loss),
-                valid_score=_finite_or_none(e.valid_score),
+                valid_score=finite_or_none(e.valid_score),
                 seconds=float(e.seconds),
                 fold=fold,
             )
@@ -237,7 +230,7 @@ def run_trial(study: optuna.Study, spec: StudySpec, folds: list[StudyInputs] | S
                 break
         if state == "interrupted":
             raise KeyboardInterrupt
-        if state == "complete" and _finite_or_none(_aggregate(results, state)["objective"]) is None:
+        if state == "complete" and finite_or_none(_aggregate(results, state)["objective"]) is None:
             raise FloatingPointError(
                 f"training diverged before any finite validation score (stop reason "
                 f"{results[-1].stop_reason}); lower space.learning_rate or narrow its range"
