@@ -6,7 +6,7 @@ import numpy as np
 import optuna
 import pytest
 
-from sweep.search import PruningView
+from sweep.search import PercentileRule, PruningView
 
 optuna.logging.set_verbosity(optuna.logging.WARNING)
 
@@ -17,6 +17,14 @@ PRUNERS = {
                                                            interval_steps=4, n_min_trials=3),
     "halving": lambda: optuna.pruners.SuccessiveHalvingPruner(min_resource=2, reduction_factor=3),
 }
+# the same percentile rules, applied by the view itself in constant time per epoch
+RULES = {
+    "median": PercentileRule(50.0, n_startup_trials=3, n_warmup_steps=2),
+    "percentile": PercentileRule(25.0, n_startup_trials=2),
+    "median-interval": PercentileRule(50.0, n_startup_trials=2, n_warmup_steps=3, interval_steps=4, n_min_trials=3),
+}
+VIEWS = {**{name: (lambda make=make: PruningView(make())) for name, make in PRUNERS.items()},
+         **{f"{name}-rule": (lambda rule=rule: PruningView(rule=rule)) for name, rule in RULES.items()}}
 
 
 def _curves(n_trials=20, n_epochs=30, seed=0):
@@ -26,13 +34,13 @@ def _curves(n_trials=20, n_epochs=30, seed=0):
             for _ in range(n_trials)]
 
 
-@pytest.mark.parametrize("name", sorted(PRUNERS))
+@pytest.mark.parametrize("name", sorted(VIEWS))
 def test_pruning_view_decides_like_optuna(name):
     # reference: optuna's pruner on a plain in-memory study that receives every report (optuna's
     # documented report/should_prune loop). Odd trials run in "this worker" (both decide, and the
     # decisions must agree); even trials run "elsewhere" and reach the view from the record.
-    reference = optuna.create_study(pruner=PRUNERS[name]())
-    view = PruningView(PRUNERS[name]())
+    reference = optuna.create_study(pruner=PRUNERS[name.removesuffix("-rule")]())
+    view = VIEWS[name]()
     ours, theirs = [], []
     for number, curve in enumerate(_curves()):
         here = number % 2 == 1
@@ -75,3 +83,11 @@ def test_pruning_view_ignores_trials_it_has_seen_and_unfinished_ones():
     view.start()
     # worse than the one completed trial at epoch 1 -> pruned (median of one trial is that trial)
     assert view.should_prune(1, 2.0)
+
+
+def test_percentile_rule_gives_optuna_pruner_with_the_same_settings():
+    # reference: optuna's MedianPruner is its PercentilePruner at the 50th percentile (optuna's documentation)
+    pruner = PercentileRule(50.0, n_startup_trials=3, n_warmup_steps=2).pruner()
+    assert isinstance(pruner, optuna.pruners.PercentilePruner)
+    with pytest.raises(ValueError, match="PercentileRule"):
+        PruningView()
