@@ -1,4 +1,4 @@
-"""The board's data step: records in, plain values out, no figures and no HTML.
+"""The board's data step: records in, typed values out (``sweep/board/values.py``), no figures and no HTML.
 
 ``collect_board(tracker, study)`` reads one study into a ``BoardData``. Each ``collect_*`` function
 builds one part of it from records the tracker returned; only ``collect_curves`` and
@@ -9,19 +9,33 @@ from __future__ import annotations
 
 import json
 import shlex
-from dataclasses import dataclass, field
+from collections.abc import Iterable
 from datetime import datetime, timezone
 
 from sweep.board.reviews import collect_review
+from sweep.board.values import (
+    BestBaseline,
+    BestTrial,
+    BoardData,
+    BoardHeader,
+    DatasetFacts,
+    EpochCount,
+    EpochUse,
+    GapPoint,
+    GapPoints,
+    LearningCurve,
+    MadeBy,
+    ProgressPoint,
+    TargetFacts,
+)
 from sweep.errors import SpecError
 from sweep.record import TRIAL_STATES, StudyRecord, Tracker, code_version, finite_or_none, rank_rows
-from sweep.search import setting_importance
+from sweep.search import SettingImportance, setting_importance
 from sweep.study import Fixed, StudySpec, spec_from_text
 
 __all__ = [
     "N_CURVES",
     "SCATTER_SETTINGS",
-    "BoardData",
     "collect_board",
     "collect_curves",
     "collect_epochs",
@@ -66,12 +80,12 @@ def _searched(spec, trials) -> list[str]:
     return names
 
 
-def collect_rows(record, spec, trials, baselines):
+def collect_rows(record, spec, trials, baselines) -> tuple[list[dict], tuple[str, ...], dict[str, str]]:
     """The ranking rows, the searched settings and their kinds ("num" or "text").
 
-    Rows come from ``sweep.record.rank_rows`` (ascending objective, missing last; reversed for a
-    study that maximizes). Each row gets ``settings`` (values in ``names`` order; None for baselines),
-    ``behind`` and ``marker``.
+    Rows are the dicts ``sweep.record.rank_rows`` gives (ascending objective, missing last; reversed
+    for a study that maximizes), left as dicts: they are the rows the CLI prints as JSON. Each row
+    gets ``settings`` (values in ``names`` order; None for baselines), ``behind`` and ``marker``.
     """
     rows = rank_rows(trials, baselines, sort="objective")
     if record.direction == "maximize":
@@ -102,7 +116,7 @@ def collect_rows(record, spec, trials, baselines):
             row["marker"] = "no objective"
         else:
             row["marker"] = "behind"
-    return rows, names, kinds
+    return rows, tuple(names), kinds
 
 
 # ---------------------------------------------------------------------------------------- header
@@ -137,7 +151,7 @@ def _short_commit(commit: str | None) -> str | None:
     return head[:12] + ("+" + rest if rest else "")
 
 
-def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs) -> dict:
+def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs: EpochUse) -> BoardHeader:
     """What the top of the board says about the study, its data and how it ran."""
     counts = {state: 0 for state in TRIAL_STATES}
     for t in trials:
@@ -150,65 +164,64 @@ def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs) ->
     target = None
     fixed, space = {}, {}
     if spec is not None:
-        target = {"estimator": spec.target.estimator, "horizons": list(spec.target.horizons),
-                  "scale": spec.target.scale, "task": spec.target.task}
+        target = TargetFacts(estimator=spec.target.estimator, horizons=tuple(spec.target.horizons),
+                             scale=spec.target.scale, task=spec.target.task)
         for name, setting in spec.space.items():
             if isinstance(setting, Fixed):
                 fixed[name] = setting.value
             else:
                 space[name] = setting.to_plain()
-    return {
-        "study": record.name,
-        "created": record.created,
-        "objective": record.objective,
-        "direction": record.direction,
-        "task": record.task,
-        "target": target,
-        "dataset": {
-            "source": dataset.source, "n_rows": dataset.n_rows, "first_date": dataset.first_date,
-            "last_date": dataset.last_date, "sha256": dataset.sha256, "sha256_short": dataset.sha256[:12],
-            "n_dropped": len(dataset.dropped),
-        },
-        "windows": record.settings.get("windows"),
-        "sampler": record.sampler,
-        "pruner": record.pruner,
-        "search_details": _search_details(spec),
-        "max_epochs": epochs["max_epochs"],
-        "space": space,
-        "fixed": fixed,
-        "counts": counts,
-        "n_trials": len(trials),
-        "compute_seconds": float(sum(t.seconds for t in trials)),
-        "wall_seconds": _seconds_between(min(starts), max(ends)) if starts and ends else None,
-        "code_version": record.code_version,
-        "git_commit": record.git_commit,
-        "git_commit_short": _short_commit(record.git_commit),
-        "python": record.python,
-        "platform": record.platform,
-        "spec_hash_short": record.spec_hash[:12],
-        "spec_problem": spec_problem,
-        "best_trial": ({"trial": complete[0]["trial"], "objective": complete[0]["objective"]}
-                       if complete else None),
-        "best_baseline": ({"name": base[0]["trial"], "objective": base[0]["objective"]} if base else None),
-        "n_beating": sum(1 for r in trial_rows if r["beats_best_baseline"] is True),
-    }
+    return BoardHeader(
+        study=record.name,
+        created=record.created,
+        objective=record.objective,
+        direction=record.direction,
+        task=record.task,
+        target=target,
+        dataset=DatasetFacts(
+            source=dataset.source, n_rows=dataset.n_rows, first_date=dataset.first_date,
+            last_date=dataset.last_date, sha256=dataset.sha256, sha256_short=dataset.sha256[:12],
+            n_dropped=len(dataset.dropped),
+        ),
+        windows=record.settings.get("windows"),
+        sampler=record.sampler,
+        pruner=record.pruner,
+        search_details=_search_details(spec),
+        max_epochs=epochs.max_epochs,
+        space=space,
+        fixed=fixed,
+        counts=counts,
+        n_trials=len(trials),
+        compute_seconds=float(sum(t.seconds for t in trials)),
+        wall_seconds=_seconds_between(min(starts), max(ends)) if starts and ends else None,
+        code_version=record.code_version,
+        git_commit=record.git_commit,
+        git_commit_short=_short_commit(record.git_commit),
+        python=record.python,
+        platform=record.platform,
+        spec_hash_short=record.spec_hash[:12],
+        spec_problem=spec_problem,
+        best_trial=BestTrial(trial=complete[0]["trial"], objective=complete[0]["objective"]) if complete else None,
+        best_baseline=BestBaseline(name=base[0]["trial"], objective=base[0]["objective"]) if base else None,
+        n_beating=sum(1 for r in trial_rows if r["beats_best_baseline"] is True),
+    )
 
 
 # ---------------------------------------------------------------------------------------- pictures
 
 
-def collect_progress(trials, direction: str = "minimize") -> list[dict]:
+def collect_progress(trials, direction: str = "minimize") -> tuple[ProgressPoint, ...]:
     """Objective by trial number, with the best complete objective so far."""
     better = max if direction == "maximize" else min
     best, out = None, []
     for t in sorted(trials, key=lambda t: t.number):
         if t.state == "complete" and _finite(t.objective):
             best = t.objective if best is None else better(best, t.objective)
-        out.append({"trial": t.number, "state": t.state, "objective": t.objective, "running_best": best})
-    return out
+        out.append(ProgressPoint(trial=t.number, state=t.state, objective=t.objective, running_best=best))
+    return tuple(out)
 
 
-def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURVES) -> list[dict]:
+def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURVES) -> tuple[LearningCurve, ...]:
     """Learning curves of the ``n_curves`` best complete trials (loaded for those trials only).
 
     With walk-forward folds, the curve of the latest fold: the network a holdout or a forecast uses.
@@ -219,115 +232,71 @@ def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURV
         epochs = tracker.load_trial(study, row["trial"]).epochs
         last_fold = max((e.fold for e in epochs), default=0)
         epochs = [e for e in epochs if e.fold == last_fold]
-        curves.append({
-            "trial": row["trial"], "rank": rank, "objective": row["objective"], "best_epoch": row["best_epoch"],
-            "epoch": [e.epoch for e in epochs], "train_loss": [e.train_loss for e in epochs],
-            "valid_loss": [e.valid_loss for e in epochs],
-        })
-    return curves
+        curves.append(LearningCurve(
+            trial=row["trial"], rank=rank, objective=row["objective"], best_epoch=row["best_epoch"],
+            epoch=tuple(e.epoch for e in epochs), train_loss=tuple(e.train_loss for e in epochs),
+            valid_loss=tuple(e.valid_loss for e in epochs),
+        ))
+    return tuple(curves)
 
 
-def collect_importance(trials, spec, direction: str = "minimize") -> dict:
+def collect_importance(trials, spec, direction: str = "minimize") -> SettingImportance:
     """Setting importance of the complete trials (``sweep.search.setting_importance``) over the searched settings."""
     done = [t for t in trials if t.state == "complete" and _finite(t.objective)]
     return setting_importance(done, _searched(spec, done), spec.space if spec is not None else {}, direction)
 
 
-def collect_scatter(trials, names=SCATTER_SETTINGS) -> dict[str, dict]:
+def collect_scatter(trials, names=SCATTER_SETTINGS) -> dict[str, GapPoints]:
     """Overfit gap against each setting in ``names`` for complete trials (values from their params)."""
     out = {}
     complete = [t for t in trials if t.state == "complete" and _finite(t.gap)]
     for name in names:
-        points = [{"trial": t.number, "x": t.params[name], "gap": t.gap, "gap_ratio": t.gap_ratio,
-                   "objective": t.objective} for t in complete if _finite(t.params.get(name))]
+        points = tuple(GapPoint(trial=t.number, x=t.params[name], gap=t.gap, gap_ratio=t.gap_ratio,
+                                objective=t.objective) for t in complete if _finite(t.params.get(name)))
         reason = None
         if not complete:
             reason = "no complete trial with an overfit gap yet"
         elif not points:
             reason = f"the trials' settings hold no numeric {name}"
-        out[name] = {"points": points, "reason": reason}
+        out[name] = GapPoints(points=points, reason=reason)
     return out
 
 
 # ---------------------------------------------------------------------------------------- epochs
 
 
-def saved_share(max_epochs: int, trials: list[dict]) -> tuple[int, int, float | None]:
+def saved_share(max_epochs: int, trials: Iterable[EpochCount]) -> tuple[int, int, float | None]:
     """Epochs pruning saved: (n_saved, n_run, share).
 
     ``n_saved`` is the sum over pruned trials of ``max_epochs - epochs run`` (never below 0);
     ``n_run`` is every epoch actually run, by trials of every state; ``share = n_saved / (n_saved + n_run)``
     (None when both are 0). It is an upper bound: early stopping might have ended some pruned trials sooner.
     """
-    n_saved = sum(max(0, max_epochs - t["epochs"]) for t in trials if t["state"] == "pruned")
-    n_run = sum(t["epochs"] for t in trials)
+    trials = list(trials)
+    n_saved = sum(max(0, max_epochs - t.epochs) for t in trials if t.state == "pruned")
+    n_run = sum(t.epochs for t in trials)
     total = n_saved + n_run
     return n_saved, n_run, (n_saved / total if total else None)
 
 
-def collect_epochs(trials, spec) -> dict:
+def collect_epochs(trials, spec) -> EpochUse:
     """Epochs used per trial, and the share pruning saved (see ``saved_share``)."""
-    per_trial = [{"trial": t.number, "state": t.state, "epochs": t.n_epochs}
-                 for t in sorted(trials, key=lambda t: t.number)]
+    per_trial = tuple(EpochCount(trial=t.number, state=t.state, epochs=t.n_epochs)
+                      for t in sorted(trials, key=lambda t: t.number))
     if spec is not None and spec.split.folds:
         max_epochs = spec.training.max_epochs * spec.split.folds
         source = "training.max_epochs times split.folds of the study file"
     elif spec is not None:
         max_epochs, source = spec.training.max_epochs, "training.max_epochs of the study file"
     else:
-        max_epochs = max((t["epochs"] for t in per_trial), default=0)
+        max_epochs = max((t.epochs for t in per_trial), default=0)
         source = "the longest trial (the study file kept in the record could not be read)"
     n_saved, n_run, share = saved_share(max_epochs, per_trial)
-    return {"max_epochs": max_epochs, "max_epochs_source": source, "trials": per_trial,
-            "n_run": n_run, "n_saved": n_saved, "saved_share": share,
-            "n_pruned": sum(1 for t in per_trial if t["state"] == "pruned")}
+    return EpochUse(max_epochs=max_epochs, max_epochs_source=source, trials=per_trial, n_run=n_run,
+                    n_saved=n_saved, saved_share=share, n_pruned=sum(1 for t in per_trial if t.state == "pruned"))
 
 
 # ---------------------------------------------------------------------------------------- the whole board
-
-
-@dataclass(frozen=True)
-class BoardData:
-    """Everything the board shows, as plain values (no records, no figures).
-
-    Attributes:
-        header: study, dataset, target, objective, search, trial counts, compute time, code version.
-        rows: the ranking (trials and validation-window baselines) as ``sweep.record.rank_rows``
-            gives it, each row with ``behind`` (True: a trial that does not beat the best baseline)
-            and ``marker`` (the text shown in the table's marker column).
-        settings: the searched settings, in table order; ``setting_kinds`` says "num" or "text" each.
-        progress: one dict per trial in number order: ``trial``, ``state``, ``objective``,
-            ``running_best`` (best complete objective so far, or None).
-        curves: the best complete trials' learning curves: ``trial``, ``rank``, ``objective``,
-            ``best_epoch``, ``epoch``, ``train_loss``, ``valid_loss`` (lists).
-        scatter: setting name -> {"points": [...], "reason": str | None}; a point has ``trial``,
-            ``x``, ``gap``, ``gap_ratio``, ``objective``.
-        importance: ``values`` (setting -> share, largest first), ``evaluator``, ``n_trials``,
-            ``reason`` (why it is absent, or None).
-        epochs: ``max_epochs``, ``max_epochs_source``, ``trials`` (trial, state, epochs),
-            ``n_run``, ``n_saved``, ``saved_share``.
-        review: ``notes``, ``confirmations``, ``holdouts``, ``comparisons`` (lists of plain dicts),
-            ``n_holdouts`` and ``n_comparisons``;
-            add more keys here (the template shows the section when any list is non-empty).
-        made: ``command``, ``version``, ``time`` (UTC) of this board.
-    """
-
-    header: dict
-    rows: list[dict]
-    settings: list[str]
-    setting_kinds: dict[str, str]
-    progress: list[dict]
-    curves: list[dict]
-    scatter: dict[str, dict]
-    importance: dict
-    epochs: dict
-    review: dict = field(default_factory=dict)
-    made: dict = field(default_factory=dict)
-
-    @property
-    def has_review(self) -> bool:
-        """True when the record holds notes, confirmations or holdout results for the study."""
-        return any(isinstance(v, list) and v for v in self.review.values())
 
 
 def collect_board(tracker: Tracker, study: str | None = None, *, command: str | None = None,
@@ -366,9 +335,9 @@ def collect_board(tracker: Tracker, study: str | None = None, *, command: str | 
         importance=collect_importance(trials, spec, record.direction),
         epochs=epochs,
         review=review,
-        made={
-            "command": command or f"volsweep board <record> --study {shlex.quote(record.name)}",
-            "version": code_version(),
-            "time": now or datetime.now(timezone.utc).isoformat(timespec="seconds"),
-        },
+        made=MadeBy(
+            command=command or f"volsweep board <record> --study {shlex.quote(record.name)}",
+            version=code_version(),
+            time=now or datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        ),
     )

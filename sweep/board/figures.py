@@ -12,6 +12,7 @@ import math
 
 import plotly.graph_objects as go
 
+from sweep.board.values import BoardData, GapPoints
 from sweep.record import finite_or_none
 
 __all__ = ["OKABE_ITO", "PLOT_CONFIG", "STATE_STYLE", "build_figures"]
@@ -73,77 +74,77 @@ def _top_edge(values, keep) -> float | None:
     return top if max(values) > top + (top - low) else None
 
 
-def _progress(data):
+def _progress(data: BoardData):
     h = data.header
-    objective = h["objective"]
-    points = [p for p in data.progress if _finite(p["objective"])]
+    objective = h.objective
+    points = [p for p in data.progress if _finite(p.objective)]
     if not points:
         return None, "Objective by trial: not drawn, no trial has an objective yet."
-    baseline = h["best_baseline"]
-    best = [p for p in data.progress if _finite(p["running_best"])]
-    top = _top_edge([p["objective"] for p in points],
-                    [baseline["objective"] if baseline else None] + [p["running_best"] for p in best[-1:]])
+    baseline = h.best_baseline
+    best = [p for p in data.progress if _finite(p.running_best)]
+    top = _top_edge([p.objective for p in points],
+                    [baseline.objective if baseline else None] + [p.running_best for p in best[-1:]])
     fig = go.Figure()
     n_above = 0
     for state in ("complete", "pruned"):
-        chosen = [p for p in points if p["state"] == state]
-        inside = [p for p in chosen if top is None or p["objective"] <= top]
-        above = [p for p in chosen if top is not None and p["objective"] > top]
+        chosen = [p for p in points if p.state == state]
+        inside = [p for p in chosen if top is None or p.objective <= top]
+        above = [p for p in chosen if top is not None and p.objective > top]
         colour, symbol = STATE_STYLE[state]
         if inside:
             fig.add_trace(go.Scatter(
-                x=[p["trial"] for p in inside], y=[p["objective"] for p in inside], mode="markers", name=state,
+                x=[p.trial for p in inside], y=[p.objective for p in inside], mode="markers", name=state,
                 marker=dict(color=colour, symbol=symbol, size=7, line=dict(width=1, color=colour)),
                 hovertemplate=f"trial %{{x}} ({state})<br>{objective} %{{y:.4g}}<extra></extra>"))
         if above:  # drawn on the top edge as triangles; the hover gives the value
             n_above += len(above)
             fig.add_trace(go.Scatter(
-                x=[p["trial"] for p in above], y=[top] * len(above), customdata=[p["objective"] for p in above],
+                x=[p.trial for p in above], y=[top] * len(above), customdata=[p.objective for p in above],
                 mode="markers", name=f"{state}, above the scale", cliponaxis=False,
                 marker=dict(color=colour, symbol="triangle-up", size=8),
                 hovertemplate=f"trial %{{x}} ({state})<br>{objective} %{{customdata:.4g}} (above the scale)"
                               "<extra></extra>"))
     if best:
-        fig.add_trace(go.Scatter(x=[p["trial"] for p in best], y=[p["running_best"] for p in best], mode="lines",
+        fig.add_trace(go.Scatter(x=[p.trial for p in best], y=[p.running_best for p in best], mode="lines",
                                  name="best so far", line=dict(color=OKABE_ITO["bluish_green"], width=2, shape="hv"),
                                  hoverinfo="skip"))
     text = "no baseline recorded"
     if baseline is not None:
-        fig.add_hline(y=baseline["objective"], line=dict(color=OKABE_ITO["black"], dash="dash", width=1.5),
-                      annotation_text=f"best baseline: {baseline['name']}", annotation_position="top left")
-        text = f"the dashed line is the best baseline ({baseline['name']}); points below it beat every baseline"
-    direction = "higher" if h["direction"] == "maximize" else "lower"
+        fig.add_hline(y=baseline.objective, line=dict(color=OKABE_ITO["black"], dash="dash", width=1.5),
+                      annotation_text=f"best baseline: {baseline.name}", annotation_position="top left")
+        text = f"the dashed line is the best baseline ({baseline.name}); points below it beat every baseline"
+    direction = "higher" if h.direction == "maximize" else "lower"
     _layout(fig, x="trial number", y=f"{objective} (validation)")
     if top is not None:
-        low = min(p["objective"] for p in points)
+        low = min(p.objective for p in points)
         fig.update_yaxes(range=[low - 0.04 * (top - low), top])
     cut = f" {n_above} trials far above the rest sit on the top edge as triangles." if n_above else ""
     return fig, (f"Each point is one trial's {objective} on the validation window ({direction} is better; "
                  f"crosses are pruned trials); the green line is the best complete trial so far and {text}.{cut}")
 
 
-def _curves(data):
+def _curves(data: BoardData):
     if not data.curves:
         return None, "Learning curves: not drawn, no trial is complete yet."
     fig = go.Figure()
     for i, c in enumerate(data.curves):
         colour = CURVE_COLOURS[i % len(CURVE_COLOURS)]
-        group = f"trial {c['trial']}"
-        fig.add_trace(go.Scatter(x=c["epoch"], y=c["valid_loss"], mode="lines", name=f"#{c['rank']} {group}",
+        group = f"trial {c.trial}"
+        fig.add_trace(go.Scatter(x=c.epoch, y=c.valid_loss, mode="lines", name=f"#{c.rank} {group}",
                                  legendgroup=group, line=dict(color=colour, width=2),
                                  hovertemplate=f"{group} validation<br>epoch %{{x}}: %{{y:.4g}}<extra></extra>"))
-        fig.add_trace(go.Scatter(x=c["epoch"], y=c["train_loss"], mode="lines", name=f"{group} training",
+        fig.add_trace(go.Scatter(x=c.epoch, y=c.train_loss, mode="lines", name=f"{group} training",
                                  legendgroup=group, showlegend=False, line=dict(color=colour, width=1.5, dash="dot"),
                                  hovertemplate=f"{group} training<br>epoch %{{x}}: %{{y:.4g}}<extra></extra>"))
-        if c["best_epoch"] in c["epoch"]:
-            k = c["epoch"].index(c["best_epoch"])
-            fig.add_trace(go.Scatter(x=[c["best_epoch"]], y=[c["valid_loss"][k]], mode="markers", legendgroup=group,
+        if c.best_epoch in c.epoch:
+            k = c.epoch.index(c.best_epoch)
+            fig.add_trace(go.Scatter(x=[c.best_epoch], y=[c.valid_loss[k]], mode="markers", legendgroup=group,
                                      showlegend=False, marker=dict(color=colour, symbol="diamond", size=10,
                                                                    line=dict(width=1, color="#fff")),
                                      hovertemplate=f"{group} best epoch %{{x}}<extra></extra>"))
-    values = [v for c in data.curves for v in c["valid_loss"] + c["train_loss"]]
-    after_best = [v for c in data.curves for k, e in enumerate(c["epoch"]) if e >= c["best_epoch"]
-                  for v in (c["valid_loss"][k], c["train_loss"][k])]
+    values = [v for c in data.curves for v in c.valid_loss + c.train_loss]
+    after_best = [v for c in data.curves for k, e in enumerate(c.epoch) if e >= c.best_epoch
+                  for v in (c.valid_loss[k], c.train_loss[k])]
     top = _top_edge(values, after_best)
     _layout(fig, x="epoch", y="loss (training loss function)", height=380)
     cut = ""
@@ -156,21 +157,21 @@ def _curves(data):
                  f"Validation rising while training keeps falling is overfitting.{cut}")
 
 
-def _gap(data, name: str, label: str):
-    part = data.scatter.get(name, {"points": [], "reason": f"{name} is not among the trials' settings"})
-    points = part["points"]
+def _gap(data: BoardData, name: str, label: str):
+    part = data.scatter.get(name, GapPoints(reason=f"{name} is not among the trials' settings"))
+    points = part.points
     if not points:
-        return None, f"Overfit gap against {label}: not drawn, {part['reason']}."
-    objective = data.header["objective"]
-    colours = [p["objective"] for p in points if _finite(p["objective"])] or [0.0]
-    top = _top_edge([p["gap"] for p in points], [])
-    above = [top is not None and p["gap"] > top for p in points]
+        return None, f"Overfit gap against {label}: not drawn, {part.reason}."
+    objective = data.header.objective
+    colours = [p.objective for p in points if _finite(p.objective)] or [0.0]
+    top = _top_edge([p.gap for p in points], [])
+    above = [top is not None and p.gap > top for p in points]
     fig = go.Figure(go.Scatter(
-        x=[p["x"] for p in points], y=[top if up else p["gap"] for p, up in zip(points, above)], mode="markers",
+        x=[p.x for p in points], y=[top if up else p.gap for p, up in zip(points, above)], mode="markers",
         name="complete trial", cliponaxis=False,
-        customdata=[[p["trial"], p["gap"], p["gap_ratio"] if _finite(p["gap_ratio"]) else None, p["objective"]]
+        customdata=[[p.trial, p.gap, p.gap_ratio if _finite(p.gap_ratio) else None, p.objective]
                     for p in points],
-        marker=dict(size=8, color=[p["objective"] for p in points], colorscale=OBJECTIVE_SCALE, showscale=True,
+        marker=dict(size=8, color=[p.objective for p in points], colorscale=OBJECTIVE_SCALE, showscale=True,
                     cmin=min(colours), cmax=_quantile(colours, 0.9) if len(colours) >= 5 else max(colours),
                     symbol=["triangle-up" if up else "circle" for up in above],
                     colorbar=dict(title=dict(text=objective), thickness=14), line=dict(width=0.5, color="#333")),
@@ -179,9 +180,9 @@ def _gap(data, name: str, label: str):
     fig.add_hline(y=0, line=dict(color="#888", width=1))
     _layout(fig, x=label, y="overfit gap (validation - training loss)")
     if top is not None:
-        low = min(0.0, min(p["gap"] for p in points))
+        low = min(0.0, min(p.gap for p in points))
         fig.update_yaxes(range=[low - 0.04 * (top - low), top])
-    xs = [p["x"] for p in points]
+    xs = [p.x for p in points]
     if name == "hidden_units" and min(xs) > 0 and max(xs) / min(xs) > 4:  # units read better on a log scale
         fig.update_xaxes(type="log")
     n_above = sum(above)
@@ -191,34 +192,34 @@ def _gap(data, name: str, label: str):
                  f"{objective} (darker is lower; the worst tenth share the lightest colour).{cut}")
 
 
-def _importance(data):
+def _importance(data: BoardData):
     imp = data.importance
-    if imp["reason"] is not None:
-        return None, f"Setting importance: not drawn, {imp['reason']}."
-    names = list(imp["values"])[::-1]  # largest at the top
-    shares = [imp["values"][n] for n in names]
+    if imp.reason is not None:
+        return None, f"Setting importance: not drawn, {imp.reason}."
+    names = list(imp.values)[::-1]  # largest at the top
+    shares = [imp.values[n] for n in names]
     fig = go.Figure(go.Bar(x=shares, y=names, orientation="h", marker_color=OKABE_ITO["blue"],
                            text=[f"{s:.0%}" for s in shares], textposition="outside", cliponaxis=False,
                            hovertemplate="%{y}: %{x:.3f}<extra></extra>"))
     _layout(fig, x="share of importance", y="setting", height=max(220, 60 + 34 * len(names)))
     fig.update_xaxes(range=[0, max(shares) * 1.18 if shares else 1], tickformat=".0%")
-    return fig, (f"How much each searched setting explains which trials reach the best {data.header['objective']} "
-                 f"(optuna's {imp['evaluator']} on the {imp['n_trials']} complete trials; shares sum to 1). "
+    return fig, (f"How much each searched setting explains which trials reach the best {data.header.objective} "
+                 f"(optuna's {imp.evaluator} on the {imp.n_trials} complete trials; shares sum to 1). "
                  "A long bar is a setting worth fixing carefully; with few trials it is a rough estimate.")
 
 
-def _epochs(data):
+def _epochs(data: BoardData):
     e = data.epochs
-    if not e["trials"]:
+    if not e.trials:
         return None, "Epochs per trial: not drawn, the study has no trial yet."
-    as_bars = len(e["trials"]) <= MAX_BARS  # past that, bars get thinner than a pixel: draw points
+    as_bars = len(e.trials) <= MAX_BARS  # past that, bars get thinner than a pixel: draw points
     fig = go.Figure()
     for state in ("complete", "pruned", "failed", "running"):
-        chosen = [t for t in e["trials"] if t["state"] == state]
+        chosen = [t for t in e.trials if t.state == state]
         if not chosen:
             continue
         colour, symbol = STATE_STYLE[state]
-        x, y = [t["trial"] for t in chosen], [t["epochs"] for t in chosen]
+        x, y = [t.trial for t in chosen], [t.epochs for t in chosen]
         hover = f"trial %{{x}} ({state}): %{{y}} epochs<extra></extra>"
         if as_bars:
             fig.add_trace(go.Bar(x=x, y=y, name=state, hovertemplate=hover,
@@ -226,22 +227,22 @@ def _epochs(data):
         else:
             fig.add_trace(go.Scatter(x=x, y=y, name=state, mode="markers", hovertemplate=hover,
                                      marker=dict(color=colour, symbol=symbol, size=5)))
-    fig.add_hline(y=e["max_epochs"], line=dict(color=OKABE_ITO["black"], dash="dot", width=1),
-                  annotation_text=f"max_epochs {e['max_epochs']}", annotation_position="top left")
+    fig.add_hline(y=e.max_epochs, line=dict(color=OKABE_ITO["black"], dash="dot", width=1),
+                  annotation_text=f"max_epochs {e.max_epochs}", annotation_position="top left")
     _layout(fig, x="trial number", y="epochs run")
     fig.update_layout(barmode="overlay", bargap=0.1)
-    if e["saved_share"] is None:
+    if e.saved_share is None:
         saved = "no epoch was run yet"
     else:
-        saved = (f"pruning saved {e['saved_share']:.0%} of epochs = the {e['n_saved']} epochs the "
-                 f"{e['n_pruned']} pruned trials would still have had up to max_epochs, divided by that plus the "
-                 f"{e['n_run']} epochs actually run by all trials (an upper bound: early stopping may have "
+        saved = (f"pruning saved {e.saved_share:.0%} of epochs = the {e.n_saved} epochs the "
+                 f"{e.n_pruned} pruned trials would still have had up to max_epochs, divided by that plus the "
+                 f"{e.n_run} epochs actually run by all trials (an upper bound: early stopping may have "
                  "ended some sooner)")
     shown = "complete (solid bars) against pruned (hatched)" if as_bars else "complete (dots) against pruned (crosses)"
     return fig, f"Epochs each trial ran, {shown}; {saved}."
 
 
-def build_figures(data) -> list[tuple[str, str, go.Figure | None]]:
+def build_figures(data: BoardData) -> list[tuple[str, str, go.Figure | None]]:
     """The board's pictures in page order: (div id, one-line caption, figure or None when absent).
 
     An absent picture (too few trials, a setting never recorded) keeps its place with a caption that

@@ -12,12 +12,13 @@ import shlex
 from datetime import datetime, timezone
 from pathlib import Path
 
-from jinja2 import Environment, FileSystemLoader, select_autoescape
+from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
 import plotly.io as pio
 from markupsafe import Markup
 
-from sweep.board.data import BoardData, collect_board
+from sweep.board.data import collect_board
 from sweep.board.figures import PLOT_CONFIG, build_figures
+from sweep.board.values import BoardData
 from sweep.errors import BoardError
 from sweep.record import Tracker
 from sweep.study import format_value
@@ -92,6 +93,7 @@ def _environment() -> Environment:
         autoescape=select_autoescape(["html", "htm", "xml", "j2"]),
         trim_blocks=True,
         lstrip_blocks=True,
+        undefined=StrictUndefined,
     )
     env.filters["fmt"] = _fmt
     env.filters["sortv"] = _sort_value

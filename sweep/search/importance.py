@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 
 import optuna
 from optuna.distributions import CategoricalDistribution, FloatDistribution, IntDistribution
@@ -15,9 +16,26 @@ from optuna.distributions import CategoricalDistribution, FloatDistribution, Int
 from sweep.record import TrialRecord, finite_or_none
 from sweep.study import Choice, FloatRange, IntRange, Setting
 
-__all__ = ["IMPORTANCE_EVALUATOR", "setting_importance"]
+__all__ = ["IMPORTANCE_EVALUATOR", "SettingImportance", "setting_importance"]
 
 IMPORTANCE_EVALUATOR = "PedAnovaImportanceEvaluator"
+
+
+@dataclass(frozen=True, kw_only=True)
+class SettingImportance:
+    """What ``setting_importance`` found: each setting's share, or why there is none.
+
+    Attributes:
+        values: setting -> share of importance (they sum to 1), largest first; empty when ``reason`` is set.
+        evaluator: the optuna evaluator that made the shares (``IMPORTANCE_EVALUATOR``).
+        n_trials: how many complete trials with an objective were rated.
+        reason: why importance is absent (a sentence the board shows), or None.
+    """
+
+    values: dict[str, float] = field(default_factory=dict)
+    evaluator: str = IMPORTANCE_EVALUATOR
+    n_trials: int
+    reason: str | None = None
 
 
 def _distribution(setting):
@@ -54,7 +72,7 @@ def _frozen_trial(trial, distributions):
 
 
 def setting_importance(done: list[TrialRecord], searched: list[str], space: Mapping[str, Setting],
-                       direction: str = "minimize") -> dict:
+                       direction: str = "minimize") -> SettingImportance:
     """Setting importance by optuna's default evaluator on an in-memory study of complete trials.
 
     Args:
@@ -66,19 +84,17 @@ def setting_importance(done: list[TrialRecord], searched: list[str], space: Mapp
             be used (missing, or a value outside it), distributions are inferred from the values seen.
 
     Returns:
-        ``values`` (setting -> share, largest first), ``evaluator``, ``n_trials``, ``reason`` (why
-        importance is absent, or None).
+        A ``SettingImportance``: the shares largest first, or empty with the ``reason`` they are absent.
     """
-    out = {"values": {}, "evaluator": IMPORTANCE_EVALUATOR, "n_trials": len(done), "reason": None}
-    if len(done) < 2:
-        out["reason"] = (f"setting importance needs at least 2 complete trials with an objective; "
-                         f"this study has {len(done)}")
-        return out
+    n_trials = len(done)
+    if n_trials < 2:
+        return SettingImportance(n_trials=n_trials, reason=(f"setting importance needs at least 2 complete trials "
+                                                            f"with an objective; this study has {n_trials}"))
     names = [n for n in searched
              if all(n in t.params for t in done) and len({json.dumps(t.params[n]) for t in done}) > 1]
     if not names:
-        out["reason"] = "no searched setting took more than one value among the complete trials"
-        return out
+        return SettingImportance(n_trials=n_trials, reason="no searched setting took more than one value among "
+                                                           "the complete trials")
     space = dict(space)
     made = None
     for distributions in ({n: _distribution(space.get(n)) for n in names},
@@ -91,8 +107,7 @@ def setting_importance(done: list[TrialRecord], searched: list[str], space: Mapp
         except ValueError:  # a recorded value outside the spec's space: infer from the values instead
             continue
     if made is None:
-        out["reason"] = "the recorded settings fit no search space optuna accepts"
-        return out
+        return SettingImportance(n_trials=n_trials, reason="the recorded settings fit no search space optuna accepts")
     verbosity = optuna.logging.get_verbosity()
     optuna.logging.set_verbosity(optuna.logging.WARNING)  # no "study created" line on the terminal
     try:
@@ -100,11 +115,9 @@ def setting_importance(done: list[TrialRecord], searched: list[str], space: Mapp
         study.add_trials(made)
         importances = optuna.importance.get_param_importances(study)
     except (ValueError, RuntimeError) as exc:
-        out["reason"] = f"optuna could not estimate setting importance: {exc}"
-        return out
+        return SettingImportance(n_trials=n_trials, reason=f"optuna could not estimate setting importance: {exc}")
     finally:
         optuna.logging.set_verbosity(verbosity)
-    out["values"] = {k: float(v) for k, v in importances.items()}
-    return out
+    return SettingImportance(n_trials=n_trials, values={k: float(v) for k, v in importances.items()})
 
 

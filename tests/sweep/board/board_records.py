@@ -12,6 +12,7 @@ import numpy as np
 
 from sweep.record import (
     BaselineRecord,
+    ComparisonRecord,
     ConfirmRecord,
     DatasetRecord,
     EpochRow,
@@ -54,6 +55,8 @@ max_epochs = 20
 """
 MAX_EPOCHS = 20
 START = datetime(2026, 1, 5, 10, 0, tzinfo=timezone.utc)
+NOW = "2026-03-01T12:00:00+00:00"  # the making time the board tests give collect_board
+COMMAND = "volsweep board larkspur.sqlite"
 
 # number, state, objective, epochs run, best epoch, hidden_units, dropout, gap, seconds
 TRIALS = [
@@ -128,6 +131,18 @@ def write_review(tracker: Tracker, name: str = "larkspur", *, note_text: str = "
         tracker.record_holdout(HoldoutRecord(
             study=name, trial=1, created=f"2026-02-0{day}T10:00:00+00:00", command="volsweep holdout ...",
             again=day == 3, results={"trial 1": {"qlike": 0.24, "mse_log": 0.5}, "har": {"qlike": 0.29}}))
+
+
+def make_comparison(window: str, created: str, words: str) -> ComparisonRecord:
+    """A comparison result in the shape compare_forecasts records: DM rows per horizon and on all horizons."""
+    dm = [{"model": "trial 1", "baseline": "har", "horizon": h, "mean_diff": -0.01, "hln_pvalue": 0.04,
+           "words": f"{words} at horizon {h}"} for h in (1, 5, "all")]
+    return ComparisonRecord(
+        study="larkspur", created=created, window=window, command=f"volsweep compare --window {window}",
+        results={"objective": "qlike", "level": 0.05, "rows": 480, "first_date": "2022-01-03",
+                 "last_date": "2023-12-29", "dm": dm, "dm_horizon_all": "mean over horizons 1, 5",
+                 "mcs": {"words": f"{words}: the set keeps trial 1"}, "spa": None,
+                 "spa_skipped": "har is not among the baselines"})
 
 
 def write_many(tracker: Tracker, name: str, n_trials: int, n_epochs: int, *, seed: int = 0) -> None:

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from board_records import write_record, write_review
+from .board_records import write_record, write_review
 from sweep.board import write_study_board
 from sweep.record import Tracker
 
