@@ -217,7 +217,7 @@ def test_write_study_board_and_the_cli_command(tmp_path):
 
 
 @pytest.mark.slow
-def test_board_of_2000_trials_is_small_and_quick(tmp_path):
+def test_board_of_2000_trials_is_small(tmp_path):
     record = tmp_path / "big.sqlite"
     with Tracker.open(record) as t:
         write_many(t, "larkspur", 2000, 50)
@@ -227,7 +227,6 @@ def test_board_of_2000_trials_is_small_and_quick(tmp_path):
     size = path.stat().st_size
     print(f"\nboard of 2000 trials (50 epochs each, pruned ones 5-49): {seconds:.2f} s, {size / 1e6:.2f} MB")
     assert size < 10_000_000
-    assert seconds < 60  # a guard against a hang, not a speed target
     html = path.read_text(encoding="utf-8")
     assert len(re.findall(r'<tr data-state="(?:complete|pruned|failed)"', html)) == 2000
     with Tracker.open(record, create=False) as t:
