@@ -29,20 +29,19 @@ def data(
     """Check a price file and summarise its daily variance by estimator."""
     from sweep.study import data_report
 
-    report = clean_json(data_report(file, min_rows=min_rows))
+    report = data_report(file, min_rows=min_rows)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
     else:
-        out.print(f"{report['file']}: {report['rows']} rows, {report['first_date']} to {report['last_date']}")
-        for p in report["problems"]:
+        out.print(f"{report.file}: {report.rows} rows, {report.first_date} to {report.last_date}")
+        for p in report.problems:
             out.print(f"  problem: {p}", highlight=False)
-        if report["estimators"]:
+        if report.estimators:
             table = Table("estimator", "mean daily variance", "median", "annualised vol", "zero days")
-            for est, s in report["estimators"].items():
-                table.add_row(est, fmt(s["mean"]), fmt(s["median"]), fmt(s["annualised_vol"], 3),
-                              str(s["zero_days"]))
+            for s in report.estimators:
+                table.add_row(s.name, fmt(s.mean), fmt(s.median), fmt(s.annualised_vol, 3), str(s.zero_days))
             out.print(table)
-    if report["problems"]:
+    if report.problems:
         raise typer.Exit(code=1)
 
 
@@ -55,18 +54,18 @@ def baselines(
     """Every baseline's losses on the validation and test windows, with fitted parameters."""
     from sweep.study import baselines_report, load_spec
 
-    report = clean_json(baselines_report(load_spec(study_file)))
+    report = baselines_report(load_spec(study_file))
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    table = Table("baseline", "window", f"objective ({report['objective']})", "qlike", "mse_log", "mz_r2")
-    for b in report["baselines"]:
-        table.add_row(b["name"], b["window"], fmt(b["objective"]), fmt(b["losses"].get("qlike")),
-                      fmt(b["losses"].get("mse_log")), fmt(b["losses"].get("mz_r2")))
+    table = Table("baseline", "window", f"objective ({report.objective})", "qlike", "mse_log", "mz_r2")
+    for b in report.baselines:
+        table.add_row(b.name, b.window, fmt(b.objective), fmt(b.losses.get("qlike")),
+                      fmt(b.losses.get("mse_log")), fmt(b.losses.get("mz_r2")))
     out.print(table)
-    for b in report["baselines"]:
-        if b["window"] == "valid" and b["params"]:
-            out.print(f"{b['name']}: {json.dumps(b['params'], default=json_default)}", highlight=False)
+    for b in report.baselines:
+        if b.window == "valid" and b.params:
+            out.print(f"{b.name}: {json.dumps(clean_json(dict(b.params)), default=json_default)}", highlight=False)
 
 
 @app.command()
@@ -95,25 +94,26 @@ def top(
     as_json: JsonOpt = False,
 ) -> None:
     """The ranking of a study's trials, with the baselines marked."""
-    report = clean_json(top_report(open_record(db), study=study, n=n, sort=sort, states=state))
+    report = top_report(open_record(db), study=study, n=n, sort=sort, states=state)
+    rows = clean_json([r.to_dict() for r in report.rows])
     if as_json:
-        print_json(report["rows"])
+        print_json(rows)
         return
-    out.print(ranking_table(report["rows"], report["objective"]))
+    out.print(ranking_table(rows, report.objective))
 
 
 @app.command("list")
 @handles_errors
 def list_studies(db: DbArg, as_json: JsonOpt = False) -> None:
     """The studies a record holds."""
-    studies = clean_json(list_report(open_record(db)))
+    report = list_report(open_record(db))
     if as_json:
-        print_json(studies)
+        print_json(clean_json(report.to_list()))
         return
     table = Table("study", "created", "trials", "best objective", "dataset")
-    for s in studies:
-        table.add_row(str(s.get("name")), str(s.get("created")), json.dumps(s.get("trials", {})),
-                      fmt(s.get("best_objective")), str(s.get("dataset", ""))[:40])
+    for s in report.studies:
+        table.add_row(str(s.name), str(s.created), json.dumps(dict(s.trials)), fmt(s.best_objective),
+                      str(s.dataset)[:40])
     out.print(table)
 
 
@@ -126,18 +126,18 @@ def show(
     as_json: JsonOpt = False,
 ) -> None:
     """One trial in full, with the study's provenance."""
-    report = clean_json(show_report(open_record(db), trial, study=study))
+    report = show_report(open_record(db), trial, study=study)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    t, s, d = report["trial"], report["study"], report["dataset"]
-    out.print(f"[bold]trial {t['trial']}[/] of study {s['name']}: {t['state']}, stop reason {t['stop_reason']}")
-    out.print(f"objective ({s['objective']}) {fmt(t['objective'])}; train loss {fmt(t['train_loss'])}, "
-              f"valid loss {fmt(t['valid_loss'])}, gap {fmt(t['gap'], 3)} (ratio {fmt(t['gap_ratio'], 3)})")
-    out.print(f"best epoch {t['best_epoch']} of {t['epochs']}; seed {t['seed']}; {fmt(t['seconds'], 3)} s")
-    out.print(f"settings: {json.dumps(t['params'])}", highlight=False)
-    out.print(f"data: {d['source']} ({d['rows']} rows, {d['first_date']} to {d['last_date']}, sha256 {d['sha256'][:12]})")
-    out.print(f"made with volsweep {s['code_version']} ({s['git_commit'] or 'no git commit'}), "
-              f"Python {s['python']} on {s['platform']}")
-    if t["error"]:
-        out.print(f"error: {t['error']}", highlight=False)
+    t, s, d = report.trial, report.study, report.dataset
+    out.print(f"[bold]trial {t.trial}[/] of study {s.name}: {t.state}, stop reason {t.stop_reason}")
+    out.print(f"objective ({s.objective}) {fmt(t.objective)}; train loss {fmt(t.train_loss)}, "
+              f"valid loss {fmt(t.valid_loss)}, gap {fmt(t.gap, 3)} (ratio {fmt(t.gap_ratio, 3)})")
+    out.print(f"best epoch {t.best_epoch} of {t.epochs}; seed {list(t.seed)}; {fmt(t.seconds, 3)} s")
+    out.print(f"settings: {json.dumps(clean_json(dict(t.params)))}", highlight=False)
+    out.print(f"data: {d.source} ({d.rows} rows, {d.first_date} to {d.last_date}, sha256 {d.sha256[:12]})")
+    out.print(f"made with volsweep {s.code_version} ({s.git_commit or 'no git commit'}), "
+              f"Python {s.python} on {s.platform}")
+    if t.error:
+        out.print(f"error: {t.error}", highlight=False)

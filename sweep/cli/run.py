@@ -105,13 +105,13 @@ def _print_summary(console: Console, summary: RunSummary) -> None:
         console.print("stopped by the user; run the same command again to resume")
     for n in summary.recovered:
         console.print(f"trial {n} was left unfinished by a stopped worker; its settings are queued again")
-    report = top_report(Tracker.open(summary.record_path, create=False), study=summary.study, n=10_000,
-                        states=("complete",))
-    trials = [r for r in report["rows"] if r["kind"] == "trial"][:N_TOP]
-    baselines = [r for r in report["rows"] if r["kind"] == "baseline"][:1]
-    rows = sorted(trials + baselines, key=lambda r: (r["objective"] is None, r["objective"]))
+    with Tracker.open(summary.record_path, create=False) as tracker:
+        report = top_report(tracker, study=summary.study, n=10_000, states=("complete",))
+    trials = [r for r in report.rows if r.kind == "trial"][:N_TOP]
+    baselines = [r for r in report.rows if r.kind == "baseline"][:1]
+    rows = sorted(trials + baselines, key=lambda r: r.rank)  # the ranking's own order: missing objectives last
     console.print(f"record: {summary.record_path} (study {summary.study}, {summary.seconds:.1f} s)")
     if rows:
         console.print(f"top {len(trials)} trials beside the best baseline:")
-        console.print(ranking_table(rows, report["objective"]))
+        console.print(ranking_table([r.to_dict() for r in rows], report.objective))
     console.print(CAUTION, style="dim")

@@ -9,7 +9,10 @@ tracker returns; `provenance` says where and with what a study was made.
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
 from sweep.record.provenance import PACKAGES, code_version, collect_provenance, git_commit, package_versions
 from sweep.record.ranking import SORT_KEYS, baseline_row, rank_rows, trial_row
-from sweep.record.reports import list_report, show_report, top_report
+from sweep.record.reports import (
+    CurvePoint, DatasetSummary, RankRow, ShowReport, StudyList, StudyProvenance, StudySummary, TopReport,
+    TrialDetail, TrialRow, list_report, show_report, top_report,
+)
 from sweep.record.schema import SCHEMA_VERSION
 from sweep.record.tracker import Tracker
 from sweep.record.values import (
@@ -20,9 +23,10 @@ from sweep.record.values import (
 
 __all__ = [
     "BASELINE_WINDOWS", "COMPARISON_WINDOWS", "DIRECTIONS", "PACKAGES", "SCHEMA_VERSION", "SORT_KEYS",
-    "STOP_REASONS", "TRIAL_STATES", "BaselineRecord", "ComparisonRecord", "ConfirmRecord", "DatasetRecord",
-    "EpochRow", "HoldoutRecord", "NoteRecord", "RecordError", "RecordNotFound", "StudyNotFound", "StudyRecord",
-    "Tracker", "TrialNotFound", "TrialRecord", "baseline_row", "check_weights", "code_version",
-    "collect_provenance", "finite_or_none", "git_commit", "list_report", "package_versions", "plain", "rank_rows", "show_report",
-    "top_report", "trial_row", "utc_now",
+    "STOP_REASONS", "TRIAL_STATES", "BaselineRecord", "ComparisonRecord", "ConfirmRecord", "CurvePoint",
+    "DatasetRecord", "DatasetSummary", "EpochRow", "HoldoutRecord", "NoteRecord", "RankRow", "RecordError",
+    "RecordNotFound", "ShowReport", "StudyList", "StudyNotFound", "StudyProvenance", "StudyRecord",
+    "StudySummary", "TopReport", "Tracker", "TrialDetail", "TrialNotFound", "TrialRecord", "TrialRow",
+    "baseline_row", "check_weights", "code_version", "collect_provenance", "finite_or_none", "git_commit",
+    "list_report", "package_versions", "plain", "rank_rows", "show_report", "top_report", "trial_row", "utc_now",
 ]

@@ -24,11 +24,15 @@ from sweep.study.spec import (
     HAR_MIN_ROWS, OBJECTIVES, PRUNERS, SAMPLERS, SECTIONS, BaselineSection, DataSection, FeatureSection,
     SearchSection, SplitSection, StudySection, StudySpec, TargetSection, TrainingSection,
 )
-from sweep.study.summaries import baselines_report, data_report, features_frame
+from sweep.study.summaries import (
+    BaselineRow, BaselinesReport, DataReport, EstimatorStats, WindowSpan, baselines_report, data_report,
+    features_frame,
+)
 
 __all__ = [
     "ACTIVATIONS", "FORECAST_FLOOR", "HAR_MIN_ROWS", "OBJECTIVES", "PRUNERS", "SAMPLERS", "SECTIONS",
-    "SETTINGS", "WINDOW_NAMES", "BaselineScore", "BaselineSection", "Choice", "DataSection", "FeatureSection",
+    "SETTINGS", "WINDOW_NAMES", "BaselineRow", "BaselineScore", "BaselineSection", "BaselinesReport",
+    "DataReport", "EstimatorStats", "WindowSpan", "Choice", "DataSection", "FeatureSection",
     "Fixed", "FloatRange", "FrozenMap", "IntRange", "SearchSection", "Setting", "SettingRule", "SpecError",
     "SplitSection", "StudyInputs", "StudySection", "StudySpec", "TargetSection", "TrainingSection", "WindowRows",
     "baselines_report", "build_study_dataset", "compute_baselines", "data_report",
