@@ -333,6 +333,7 @@ def _write_trials(path, first, count):
             t.record_trial(make_trial(number, n_epochs=4))
 
 
+@pytest.mark.slow
 def test_two_processes_write_one_file(tmp_path):
     path = tmp_path / "shared.sqlite"
     with Tracker.open(path) as t:
