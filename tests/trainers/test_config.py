@@ -11,7 +11,7 @@ import numbers
 import numpy as np
 import pytest
 
-from trainers.config import ACTIVATIONS, MLPConfig, fail, is_int, is_real
+from trainers.config import MLPConfig, fail, is_int, is_real
 
 # ---------------------------------------------------------------- is_int, is_real
 
@@ -118,9 +118,3 @@ def test_mlp_config_auto_init_follows_the_activation(activation, scheme):
     assert MLPConfig(3, 1, activation=activation, init="glorot").init_scheme == "glorot"
     assert MLPConfig(3, 1, activation=activation, init="he").init_scheme == "he"
 
-
-def test_mlp_config_defaults():
-    cfg = MLPConfig(4, 1)
-    assert (cfg.hidden, cfg.activation, cfg.task, cfg.init, cfg.dropout, cfg.dtype) == \
-           ((32,), "relu", "regression", "auto", 0.0, "float64")
-    assert ACTIVATIONS == ("relu", "tanh", "sigmoid")
