@@ -31,6 +31,7 @@ def test_epoch_macs_counts_the_products_of_one_epoch(hidden, batch):
     assert counted == bench_core.epoch_macs(hidden)
 
 
+@pytest.mark.slow
 def test_profile_script_runs_and_reports_each_call():
     out = subprocess.run([sys.executable, str(BENCH / "profile_core.py"), "--hidden", "16", "--batch", "500",
                           "--reps", "2"], capture_output=True, text=True, cwd=BENCH, timeout=120)

@@ -1,7 +1,8 @@
 """Tests for trainers/data.py: reading and checking daily price files.
 
 The fixtures in tests/fixtures/prices/ are tiny invented prices; each malformed file has one known
-fault at a known line (header = line 1). Outside references: pandas.read_csv for the values of the good
+fault at a known line (header = line 1). The checks on a parsed frame (trainers/price_checks.py) are
+tested in tests/trainers/test_price_checks.py. Outside references: pandas.read_csv for the values of the good
 file, hashlib for the SHA-256, and arch's bundled S&P 500 file (arch.data.sp500) as real OHLC data.
 """
 
@@ -14,8 +15,8 @@ import pytest
 from pandas.testing import assert_frame_equal
 
 from trainers.data import (
-    REQUIRED_COLUMNS, PriceFileError, Problem, check_prices, frame_to_csv_text, load_prices,
-    read_prices_csv_text, sha256_file,
+    REQUIRED_COLUMNS, PriceFileError, check_prices, frame_to_csv_text, load_prices, read_prices_csv_text,
+    sha256_file,
 )
 
 FIXTURES = Path(__file__).resolve().parents[1] / "fixtures" / "prices"
@@ -174,25 +175,6 @@ def test_load_prices_rejects_bad_arguments(kwargs, pattern):
 def test_load_prices_missing_path_is_a_price_file_error(tmp_path):
     with pytest.raises(PriceFileError, match="the path does not exist; fix: give the path"):
         load_prices(tmp_path / "nope.csv")
-
-
-def test_check_prices_on_a_frame():
-    frame = load_prices(FIXTURES / "good_small.csv").frame
-    assert check_prices(frame) == []
-    bad = frame.copy()
-    bad.iloc[2, 1] = 100.0          # high below open 101.6 on the third row (line 4)
-    bad.iloc[5, 3] = np.nan         # close NaN on the sixth row (line 7)
-    problems = check_prices(bad, min_rows=20)
-    assert [str(p).split(":")[0] for p in problems] == [
-        "only 8 rows, fewer than min_rows=20 that the features asked for need; fix",
-        "line 4 (date 2021-01-06), column high", "line 7 (date 2021-01-11), column close"]
-    assert check_prices(bad, lines=range(10, 18))[0].line == 12
-
-
-def test_problem_str_is_one_line():
-    p = Problem("high 1.0 below max(open, close) = 2.0", "correct high", 14, "2021-03-04", "high")
-    assert str(p) == "line 14 (date 2021-03-04), column high: high 1.0 below max(open, close) = 2.0; fix: correct high"
-    assert str(Problem("the file is empty", "write rows")) == "the file is empty; fix: write rows"
 
 
 def test_frame_to_csv_text_round_trip_is_exact():

@@ -1,4 +1,7 @@
-"""Tests of trainers/mlp.py: config checks, init, forward against scikit-learn, gradients against finite differences."""
+"""Tests of trainers/mlp.py: init, forward against scikit-learn, gradients against finite differences.
+
+The checks of `MLPConfig` (trainers/config.py) are in tests/trainers/test_config.py.
+"""
 
 import numpy as np
 import pytest
@@ -177,29 +180,6 @@ def test_network_round_trip_through_npz(tmp_path):
 
 
 # ---------------------------------------------------------------- validation
-
-
-@pytest.mark.parametrize("kwargs,match", [
-    ({"n_inputs": 0}, r"n_inputs must be an integer >= 1, got n_inputs=0"),
-    ({"n_outputs": 1, "task": "classification"}, r"n_outputs must be an integer >= 2"),
-    ({"hidden": (8, 0)}, r"hidden must be a sequence of integers >= 1, got hidden=\(8, 0\); set space.hidden"),
-    ({"hidden": "64"}, r"hidden must be a sequence"),
-    ({"activation": "gelu"}, r"activation must be one of .*got activation='gelu'; set space.activation"),
-    ({"task": "ranking"}, r"task must be one of"),
-    ({"init": "lecun"}, r"init must be one of"),
-    ({"dropout": 1.0}, r"dropout must be a number with 0 <= dropout < 1, got dropout=1.0; set space.dropout"),
-    ({"dropout": -0.1}, r"dropout=-0.1"),
-    ({"dtype": "float16"}, r"dtype must be one of"),
-])
-def test_mlp_config_rejects_bad_values(kwargs, match):
-    base = {"n_inputs": 3, "n_outputs": 2}
-    with pytest.raises(ValueError, match=match):
-        MLPConfig(**{**base, **kwargs})
-
-
-def test_mlp_config_accepts_list_hidden_and_empty():
-    assert MLPConfig(3, 1, [8, 4]).hidden == (8, 4)
-    assert MLPConfig(3, 1, []).hidden == ()
 
 
 def test_network_rejects_wrong_shapes():

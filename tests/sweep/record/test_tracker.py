@@ -16,57 +16,9 @@ import numpy as np
 import pytest
 
 from sweep.record import rows as _record_rows
-from sweep.record import (
-    BaselineRecord,
-    ConfirmRecord,
-    DatasetRecord,
-    EpochRow,
-    HoldoutRecord,
-    NoteRecord,
-    StudyRecord,
-    TrialRecord,
-)
-from sweep.record import SCHEMA_VERSION, RecordError, RecordNotFound, StudyNotFound, Tracker, TrialNotFound
-
-CSV = "date,open,high,low,close\n2021-01-04,10.0,10.5,9.8,10.2\n2021-01-05,10.2,10.4,10.0,10.1\n"
-SHA = "3f" * 32
-
-
-def make_dataset(sha=SHA, source="prices/brightwater.csv") -> DatasetRecord:
-    return DatasetRecord(sha256=sha, source=source, n_rows=2, first_date="2021-01-04", last_date="2021-01-05",
-                         columns=["open", "high", "low", "close"], csv_text=CSV,
-                         dropped=["line 4 (2021-01-06): high below low; fix: correct the row"])
-
-
-def make_study(name="coastal", sha=SHA, spec_hash="spec1", direction="minimize") -> StudyRecord:
-    return StudyRecord(
-        name=name, spec_text='name = "coastal"\n[search]\nhidden = [8, 16]\n', spec_hash=spec_hash,
-        search_hash="search1", created="2026-01-05T10:00:00+00:00", code_version="0.1.0", git_commit=None,
-        packages={"numpy": "2.4.6", "optuna": "5.0.0"}, python="3.11.7", platform="Linux-6.1",
-        machine="x86_64", dataset_sha256=sha, objective="qlike", direction=direction, task="regression",
-        storage="sqlite:///coastal.sqlite", sampler="TPESampler(seed=7)", pruner="MedianPruner()",
-        settings={"n_trials": 40, "workers": 2},
-    )
-
-
-def make_trial(number=0, study="coastal", state="complete", *, n_epochs=3, objective=0.25, arrays=True,
-               rng=None) -> TrialRecord:
-    rng = rng or np.random.default_rng(number)
-    epochs = tuple(EpochRow(epoch=i + 1, train_loss=float(1 / (i + 2)), valid_loss=float(1 / (i + 1.5)),
-                            valid_score=float(0.3 + 0.01 * i), seconds=0.02) for i in range(n_epochs))
-    return TrialRecord(
-        study=study, number=number, state=state, params={"hidden": [16, 8], "learning_rate": 1e-3,
-                                                         "dropout": 0.1, "batch_size": 64},
-        seed=[7, number], best_epoch=min(2, n_epochs), n_epochs=n_epochs,
-        stop_reason="patience" if state == "complete" else ("pruned" if state == "pruned" else None),
-        objective=objective, train_loss=0.33, valid_loss=0.4, gap=0.4 - 0.33, gap_ratio=0.4 / 0.33,
-        started="2026-01-05T10:00:01+00:00", finished="2026-01-05T10:00:03+00:00", seconds=2.0, error=None,
-        epochs=epochs,
-        valid_forecasts=rng.standard_normal((30, 2)) if arrays else None,
-        weights={"params": rng.standard_normal(41), "hidden": np.array([16, 8])} if arrays else None,
-        worker="1234@host",
-    )
-
+from sample_records import CSV, SHA, assert_same_trial, make_dataset, make_study, make_trial
+from sweep.record import BaselineRecord, ConfirmRecord, EpochRow, HoldoutRecord, NoteRecord
+from sweep.record import RecordError, RecordNotFound, StudyNotFound, Tracker, TrialNotFound
 
 @pytest.fixture
 def tracker():
@@ -74,21 +26,6 @@ def tracker():
     t.save_study(make_study(), make_dataset())
     yield t
     t.close()
-
-
-def assert_same_trial(got: TrialRecord, want: TrialRecord, *, weights=True):
-    # dataclass == leaves the array fields out; arrays are compared bit for bit
-    assert got == want
-    if want.valid_forecasts is None:
-        assert got.valid_forecasts is None
-    else:
-        np.testing.assert_array_equal(got.valid_forecasts, want.valid_forecasts)
-        assert got.valid_forecasts.dtype == np.float64
-    if weights and want.weights is not None:
-        assert sorted(got.weights) == sorted(want.weights)
-        for key, array in want.weights.items():
-            np.testing.assert_array_equal(got.weights[key], array)
-            assert got.weights[key].dtype == array.dtype
 
 
 # ---------------------------------------------------------------- studies and datasets
@@ -354,46 +291,6 @@ def test_open_rejects_files_that_are_not_records(tmp_path):
         Tracker.open(other, create=False)
 
 
-def test_open_rejects_a_newer_schema(tmp_path):
-    path = tmp_path / "r.sqlite"
-    Tracker.open(path).close()
-    conn = sqlite3.connect(path)
-    conn.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION + 1)])
-    conn.commit()
-    conn.close()
-    with pytest.raises(RecordError, match="written by a newer volsweep .*upgrade volsweep"):
-        Tracker.open(path)
-
-
-def test_open_upgrades_a_schema_1_record_keeping_its_epochs(tmp_path):
-    # a record written before epochs carried their fold: same rows, old epochs table, version 1
-    path = tmp_path / "old.sqlite"
-    with Tracker.open(path) as t:
-        t.save_study(make_study(), make_dataset())
-        t.record_trial(make_trial(0, n_epochs=3))
-    conn = sqlite3.connect(path)
-    conn.executescript("""
-        CREATE TABLE e1 AS SELECT study, number, epoch, train_loss, valid_loss, valid_score, seconds FROM vs_epochs;
-        DROP TABLE vs_epochs;
-        CREATE TABLE vs_epochs (study TEXT NOT NULL, number INTEGER NOT NULL, epoch INTEGER NOT NULL,
-            train_loss REAL, valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, epoch));
-        INSERT INTO vs_epochs SELECT * FROM e1;
-        DROP TABLE e1;
-        UPDATE vs_meta SET value = '1' WHERE key = 'schema_version';
-    """)
-    conn.commit()
-    conn.close()
-    with Tracker.open(path) as t:
-        # the epochs are still there, all in fold 0, and a trial with two folds can now be written
-        assert [(e.fold, e.epoch) for e in t.load_trial("coastal", 0).epochs] == [(0, 1), (0, 2), (0, 3)]
-        two_folds = dataclasses.replace(make_trial(1, n_epochs=2), epochs=tuple(
-            EpochRow(epoch=e, train_loss=0.5, valid_loss=0.6, fold=f) for f in (0, 1) for e in (1, 2)))
-        t.record_trial(two_folds)
-        assert [(e.fold, e.epoch) for e in t.load_trial("coastal", 1).epochs] == [(0, 1), (0, 2), (1, 1), (1, 2)]
-    version = sqlite3.connect(path).execute("SELECT value FROM vs_meta WHERE key = 'schema_version'").fetchone()
-    assert version == (str(SCHEMA_VERSION),)
-
-
 def test_copied_file_is_a_complete_study(tmp_path):
     path = tmp_path / "a" / "coastal.sqlite"
     path.parent.mkdir()
@@ -436,6 +333,7 @@ def _write_trials(path, first, count):
             t.record_trial(make_trial(number, n_epochs=4))
 
 
+@pytest.mark.slow
 def test_two_processes_write_one_file(tmp_path):
     path = tmp_path / "shared.sqlite"
     with Tracker.open(path) as t:

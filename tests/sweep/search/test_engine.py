@@ -130,6 +130,7 @@ def test_run_study_resumes_to_a_larger_budget(one_worker_study, market):
     assert [t.number for t in Tracker.open(summary.record_path).load_trials("one")] == list(range(6))
 
 
+@pytest.mark.slow
 def test_run_study_two_workers_records_the_same_shape(market):
     # trials long enough (all 60 epochs, no pruning) that the spawned worker is up before they run out
     spec = load_spec(_write_study(market, "two", trials="16", workers="2", max_epochs="100", batch_size="16",
@@ -238,6 +239,7 @@ def test_run_study_trials_are_reproducible_from_the_record(one_worker_study):
     np.testing.assert_array_equal(curve, [e.valid_loss for e in t.epochs])
 
 
+@pytest.mark.slow
 def test_ctrl_c_stops_cleanly_and_the_next_run_resumes(market):
     import signal
     import subprocess
@@ -378,6 +380,7 @@ def test_recover_keeps_a_trial_recorded_before_its_worker_died(market):
     assert tracker.load_trial("late", left.number).state == "complete"
 
 
+@pytest.mark.slow
 def test_a_killed_worker_process_is_reported_and_its_trial_queued_again(market):
     # kill the spawned worker (SIGKILL) once it has recorded a trial and is training the next one
     import multiprocessing

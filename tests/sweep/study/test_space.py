@@ -1,4 +1,8 @@
-"""The search space against a real optuna: suggest calls, the grid sampler, and the configs of a trial."""
+"""The search space against a real optuna: suggest calls and the grid sampler.
+
+The configs of a trial (`params_to_configs`, now in sweep/search/objective.py) are tested in
+tests/sweep/search/test_objective.py.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +10,6 @@ import itertools
 import math
 from pathlib import Path
 
-import numpy as np
 import optuna
 import pytest
 from optuna.distributions import CategoricalDistribution, FloatDistribution, IntDistribution
@@ -23,10 +26,7 @@ from sweep.study.space import (
     parse_space,
     suggest_params,
 )
-from sweep.search import params_to_configs
-from sweep.study import SpecError, TrainingSection, load_spec
-from trainers.fit import TrainConfig, fit_mlp
-from trainers.mlp import MLPConfig
+from sweep.study import SpecError, load_spec
 
 DEMO = Path(__file__).resolve().parents[3] / "studies" / "demo.toml"
 
@@ -134,40 +134,6 @@ def test_parse_space_fills_defaults_and_collects_problems():
         "unknown key space.hiden_units; did you mean space.hidden_units?",
         "space.dropout: must be a number >= 0.0 and < 1.0, got 1.5",
     ]
-
-
-def test_params_to_configs_builds_the_network_and_training_configs():
-    training = TrainingSection(max_epochs=7, min_delta=1e-4, optimizer="sgd", momentum=0.5)
-    params = {"batch_size": 16, "hidden_units": 12, "layers": 2, "dropout": 0.1, "patience": 3,
-              "learning_rate": 0.01, "weight_decay": 1e-5, "activation": "tanh"}
-    mlp, train = params_to_configs(params, n_inputs=3, n_outputs=2, task="regression", training=training)
-    assert mlp == MLPConfig(n_inputs=3, n_outputs=2, hidden=(12, 12), activation="tanh", task="regression",
-                            dropout=0.1)
-    assert train == TrainConfig(batch_size=16, max_epochs=7, patience=3, min_delta=1e-4, optimizer="sgd",
-                                learning_rate=0.01, momentum=0.5, weight_decay=1e-5)
-    # zero layers is the linear model
-    linear, _ = params_to_configs({**params, "layers": 0}, n_inputs=3, n_outputs=2, task="regression",
-                                  training=training)
-    assert linear.hidden == ()
-
-
-def test_params_to_configs_trains_with_the_trainers():
-    # the configs are accepted by the training loop end to end (two epochs on random data)
-    rng = np.random.default_rng(0)
-    X, y = rng.normal(size=(40, 3)), rng.normal(size=(40, 1))
-    trial = optuna.create_study(sampler=optuna.samplers.RandomSampler(seed=1)).ask()
-    params = suggest_params(trial, SPACE)
-    mlp, train = params_to_configs(params, n_inputs=3, n_outputs=1, task="regression",
-                                   training=TrainingSection(max_epochs=2))
-    result = fit_mlp(mlp, train, X[:30], y[:30], X[30:], y[30:], rng=rng)
-    assert len(result.history) == 2 and result.best_epoch in (1, 2)
-
-
-def test_params_to_configs_names_missing_settings():
-    with pytest.raises(ValueError, match=r"params lack dropout, activation"):
-        params_to_configs({"batch_size": 8, "hidden_units": 4, "layers": 1, "patience": 2, "learning_rate": 0.1,
-                           "weight_decay": 0.0}, n_inputs=1, n_outputs=1, task="regression",
-                          training=TrainingSection())
 
 
 @pytest.mark.parametrize(
