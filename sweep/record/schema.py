@@ -21,6 +21,7 @@ __all__ = [
     "BUSY_TIMEOUT",
     "COMPARISONS_SCHEMA",
     "COMPARISONS_TABLE",
+    "ENGINE_TABLES",
     "SCHEMA_VERSION",
     "TABLES",
     "database_location",
@@ -78,6 +79,12 @@ CREATE TABLE IF NOT EXISTS vs_notes (
     text TEXT NOT NULL, author TEXT,
     FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number));
 """.replace("{epochs_table}", _EPOCHS_TABLE)
+# optuna's RDBStorage tables (optuna 4-5), which may share a record's file (`--storage sqlite:///record.sqlite`)
+ENGINE_TABLES = frozenset({
+    "alembic_version", "studies", "study_directions", "study_system_attributes", "study_user_attributes",
+    "trial_heartbeats", "trial_intermediate_values", "trial_params", "trial_system_attributes",
+    "trial_user_attributes", "trial_values", "trials", "version_info",
+})
 TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
           "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes")
 
@@ -104,6 +111,9 @@ def database_location(db) -> str:
 def prepare_schema(db, location: str, *, create: bool) -> None:
     """Check that ``db`` is a volsweep record (upgrading an older one in place), or make the tables.
 
+    With ``create``, the tables are made only in an empty database or one that holds optuna's tables alone;
+    a database holding anything else is refused and left as it was.
+
     Raises:
         RecordError: the database is not a volsweep record (and ``create`` is False, or it holds other
             tables), is damaged, or was written by a newer version.
@@ -113,15 +123,21 @@ def prepare_schema(db, location: str, *, create: bool) -> None:
         tables = set(db.table_names())
     except sqlite3.DatabaseError as exc:
         raise RecordError(f"{location} is not a volsweep record: {exc}") from exc
+    others = sorted(t for t in tables - ENGINE_TABLES if not t.startswith("sqlite_"))
     if "vs_meta" in tables:
         _check_schema(db, location, tables)
-    elif create:
+    elif create and not others:
         with write_transaction(db, location):
             db.executescript(_SCHEMA)
             db.execute(
                 "INSERT OR IGNORE INTO vs_meta (key, value) VALUES ('schema_version', ?), ('created', ?)",
                 [str(SCHEMA_VERSION), utc_now()],
             )
+    elif create:
+        raise RecordError(
+            f"{location} is not a volsweep record and holds other tables ({', '.join(others)}); volsweep "
+            "writes nothing into it: give the record a new file name"
+        )
     else:
         listed = ", ".join(sorted(tables)) or "none"
         raise RecordError(

@@ -56,17 +56,13 @@ def test_prepare_schema_without_create_refuses_a_database_that_is_not_a_record()
         prepare_schema(db, ":memory:", create=False)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "prepare_schema's docstring promises RecordError for a database that is not a record and holds other "
-    "tables, but with create=True it adds the vs_ tables to any SQLite file (Tracker.open on someone's own "
-    "database writes into it)"))
 def test_prepare_schema_with_create_refuses_a_database_holding_other_tables(tmp_path):
     path = tmp_path / "mine.sqlite"
     theirs = sqlite3.connect(path)
     theirs.execute("CREATE TABLE prices (day TEXT, close REAL)")
     theirs.commit()
     theirs.close()
-    with pytest.raises(RecordError, match="is not a volsweep record"):
+    with pytest.raises(RecordError, match="is not a volsweep record and holds other tables \\(prices\\)"):
         prepare_schema(sqlite_utils.Database(path), str(path), create=True)
     assert {r[0] for r in sqlite3.connect(path).execute("SELECT name FROM sqlite_master")} == {"prices"}
 
@@ -203,3 +199,14 @@ def test_write_transaction_names_a_busy_file(tmp_path):
     finally:
         holder.execute("ROLLBACK")
         holder.close()
+
+
+def test_prepare_schema_makes_a_record_beside_optunas_own_tables(tmp_path):
+    # optuna's RDBStorage may make its tables first (`--storage sqlite:///record.sqlite`): the file is still ours
+    optuna = pytest.importorskip("optuna")
+    optuna.logging.set_verbosity(optuna.logging.WARNING)
+    path = tmp_path / "shared.sqlite"
+    optuna.create_study(study_name="s", storage=f"sqlite:///{path}")
+    prepare_schema(sqlite_utils.Database(path), str(path), create=True)
+    tables = {r[0] for r in sqlite3.connect(path).execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    assert {"vs_meta", "vs_trials", "studies", "trials"} <= tables
