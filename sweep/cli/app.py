@@ -19,13 +19,13 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from sweep.errors import VolsweepError
+from sweep.errors import InputError, VolsweepError
 from sweep.record import Tracker
 from trainers.price_checks import PriceFileError
 
 __all__ = [
-    "CAUTION", "DbArg", "JsonOpt", "REPORT_BUG", "StudyOpt", "app", "clean_json", "err", "fmt", "handles_errors",
-    "json_default", "open_record", "out", "print_json", "ranking_table",
+    "CAUTION", "DbArg", "JsonOpt", "REPORT_BUG", "StudyOpt", "app", "checked_out_file", "clean_json", "err", "fmt",
+    "handles_errors", "json_default", "open_record", "out", "print_json", "ranking_table", "write_csv",
 ]
 
 app = typer.Typer(
@@ -121,6 +121,33 @@ def fmt(value, digits: int = 4) -> str:
 
 def open_record(db: Path) -> Tracker:
     return Tracker.open(db, create=False)
+
+
+def checked_out_file(path: Path, option: str = "--out") -> Path:
+    """``path`` if a file can be written there: not a folder, in a folder that exists.
+
+    Called before a command does its work, so a bad ``--out`` fails at once.
+
+    Raises:
+        InputError: naming the path, what is wrong and the option to change.
+    """
+    path = Path(path)
+    if path.is_dir():
+        raise InputError(f"cannot write to {path}: it is a folder; give {option} a file name such as "
+                         f"{path / 'out.csv'}")
+    if not path.parent.is_dir():
+        raise InputError(f"cannot write to {path}: folder {path.parent} does not exist; create it first or "
+                         f"choose another {option} FILE")
+    return path
+
+
+def write_csv(frame, path: Path, option: str = "--out", **kwargs) -> None:
+    """``frame.to_csv(path, **kwargs)``; a file the system refuses (no permission, a full disk) is an InputError."""
+    path = checked_out_file(path, option)
+    try:
+        frame.to_csv(path, **kwargs)
+    except OSError as exc:
+        raise InputError(f"cannot write to {path}: {exc.strerror or exc}; choose another {option} FILE") from exc
 
 
 def ranking_table(rows, objective) -> Table:

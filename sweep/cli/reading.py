@@ -11,8 +11,8 @@ import typer
 from rich.table import Table
 
 from sweep.cli.app import (
-    DbArg, JsonOpt, StudyOpt, app, clean_json, fmt, handles_errors, json_default, open_record, out, print_json,
-    ranking_table,
+    DbArg, JsonOpt, StudyOpt, app, checked_out_file, clean_json, fmt, handles_errors, json_default, open_record, out,
+    print_json, ranking_table, write_csv,
 )
 from sweep.record import list_report, show_report, top_report
 
@@ -77,8 +77,9 @@ def features(
     """Write the exact design matrix and targets the sweep would use, with dates and windows."""
     from sweep.study import features_frame, load_spec
 
+    checked_out_file(out_file)
     frame = features_frame(load_spec(study_file))
-    frame.to_csv(out_file)
+    write_csv(frame, out_file)
     counts = frame["window"].value_counts().to_dict()
     out.print(f"wrote {len(frame)} rows x {frame.shape[1] - 1} columns to {out_file} ({counts})")
 

@@ -10,7 +10,8 @@ from rich.table import Table
 from rich.text import Text
 
 from sweep.cli.app import (
-    CAUTION, DbArg, JsonOpt, StudyOpt, app, clean_json, err, fmt, handles_errors, open_record, out, print_json,
+    CAUTION, DbArg, JsonOpt, StudyOpt, app, checked_out_file, clean_json, err, fmt, handles_errors, open_record, out,
+    print_json, write_csv,
 )
 
 __all__ = ["compare", "confirm", "diff", "holdout", "note", "notes", "predict", "replay"]
@@ -189,6 +190,8 @@ def predict(
     """Forecast with a recorded trial on a new price file: daily variance and annualised volatility per horizon."""
     from sweep.review import open_study, predict_file
 
+    if out_file is not None:
+        checked_out_file(out_file)
     tracker = open_record(db)
     ctx = open_study(tracker, study)
     frame, info = predict_file(ctx, tracker.load_trial(ctx.name, trial), prices)
@@ -198,7 +201,7 @@ def predict(
         typer.echo(frame.to_csv(index=False, lineterminator="\n"), nl=False)
         err.print(line, highlight=False, markup=False)
     else:
-        frame.to_csv(out_file, index=False, lineterminator="\n")
+        write_csv(frame, out_file, index=False, lineterminator="\n")
         out.print(f"wrote {out_file}: {line}", highlight=False, markup=False)
     err.print(CAUTION, style="dim")
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from sweep.errors import InputError
 from sweep.record import NoteRecord, Tracker, utc_now
 
 __all__ = ["add_decision_note", "list_notes"]
@@ -9,7 +10,14 @@ __all__ = ["add_decision_note", "list_notes"]
 
 def add_decision_note(tracker: Tracker, number: int | None, text: str, *, study: str | None = None,
                       author: str | None = None) -> NoteRecord:
-    """Add a dated decision note on a trial (``number``) or the whole study (``None``); never overwritten."""
+    """Add a dated decision note on a trial (``number``) or the whole study (``None``); never overwritten.
+
+    Raises:
+        InputError: ``text`` is empty or only spaces.
+    """
+    if not isinstance(text, str) or not text.strip():
+        raise InputError(f"a note needs text, got {text!r}; write the decision in quotes, e.g. "
+                         'volsweep note DB 3 "kept: best QLIKE and the smallest gap"')
     record = tracker.find_study(study)
     note = NoteRecord(study=record.name, trial=number, created=utc_now(), text=text, author=author)
     tracker.add_note(note)

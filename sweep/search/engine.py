@@ -15,7 +15,7 @@ from typing import Callable
 import optuna
 from optuna.trial import TrialState
 
-from sweep.errors import StudyChanged, StudyNotFound
+from sweep.errors import RecordNotFound, StudyChanged, StudyNotFound
 from sweep.record import BaselineRecord, DatasetRecord, StudyRecord, Tracker, TrialRecord, collect_provenance
 from sweep.search.objective import trial_seed
 from sweep.search.storage import default_storage_path, open_storage
@@ -49,7 +49,16 @@ def default_record_path(spec_path: Path) -> Path:
     return spec_path.with_suffix(".sqlite")
 
 
-def _create_study(tracker: Tracker, spec: StudySpec, price_data: PriceData, storage_url: str) -> None:
+@dataclass(frozen=True)
+class _NewStudy:
+    """What a new study writes to the record, all computed before anything is written."""
+
+    study: StudyRecord
+    dataset: DatasetRecord
+    baselines: list
+
+
+def _new_study(spec: StudySpec, price_data: PriceData, storage_url: str) -> _NewStudy:
     folds = prepare_folds(spec, price_data.frame)
     frame = price_data.frame
     dataset = DatasetRecord(
@@ -90,8 +99,7 @@ def _create_study(tracker: Tracker, spec: StudySpec, price_data: PriceData, stor
         )
         for b in compute_baselines(spec, folds)
     ]
-    tracker.save_study(study, dataset)
-    tracker.record_baselines(baselines)
+    return _NewStudy(study, dataset, baselines)
 
 
 def _window_settings(folds: list[StudyInputs]) -> dict:
@@ -159,6 +167,15 @@ def _recover_orphans(study: optuna.Study, storage, tracker: Tracker, spec: Study
     return numbers
 
 
+def _find_study(tracker: Tracker | None, name: str) -> StudyRecord | None:
+    if tracker is None:
+        return None
+    try:
+        return tracker.find_study(name)
+    except StudyNotFound:
+        return None
+
+
 def _n_finished(study: optuna.Study) -> int:
     return sum(
         1
@@ -190,28 +207,36 @@ def run_study(
         A RunSummary.
 
     Raises:
-        DataError, StudyChanged: nothing is run or written in those cases.
+        DataError, SpecError, StudyChanged, InputError (a storage that cannot be opened), RecordError,
+        RecordNotFound: nothing is run or written in those cases (a new record file is not created).
     """
     t0 = time.perf_counter()
     record_path = Path(record_path)
     storage_url = storage or str(default_storage_path(record_path))
     n_target = int(n_trials if n_trials is not None else spec.study.trials)
     n_workers = int(n_workers if n_workers is not None else spec.study.workers)
+    if not record_path.parent.is_dir():
+        raise RecordNotFound(f"cannot create {record_path}: folder {record_path.parent} does not exist; "
+                             "create it first")
     price_data = load_study_prices(spec)
 
-    tracker = Tracker.open(record_path)
-    try:
-        old = tracker.find_study(spec.study.name)
-    except StudyNotFound:
-        old = None
+    # Everything that can fail on the study's settings or data runs before the record is written.
+    tracker = Tracker.open(record_path) if record_path.exists() else None
+    old = _find_study(tracker, spec.study.name)
+    new = None
     if old is not None:
         _check_unchanged(old, spec, price_data.sha256)
         storage_url = storage or old.storage or storage_url
     else:
-        _create_study(tracker, spec, price_data, storage_url)
-
+        new = _new_study(spec, price_data, storage_url)
     optuna.logging.set_verbosity(optuna.logging.WARNING)
     storage_object = open_storage(storage_url)
+    if tracker is None:
+        tracker = Tracker.open(record_path)
+    if new is not None:
+        tracker.save_study(new.study, new.dataset)
+        tracker.record_baselines(new.baselines)
+
     study = optuna.create_study(
         study_name=spec.study.name,
         storage=storage_object,

@@ -10,6 +10,7 @@ import optuna
 from optuna.storages import JournalStorage
 from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
 
+from sweep.errors import InputError
 from sweep.search.pruning import PercentileRule
 from sweep.study import StudySpec, grid_values
 
@@ -25,12 +26,31 @@ def open_storage(url: str):
     """An optuna storage from a URL (`sqlite:///...`, `postgresql://...`) or a journal file path.
 
     SQLite gets a 30 s busy timeout so several workers never see `database is locked`.
+
+    Raises:
+        InputError: a URL that cannot be parsed or reached, a database without its driver, or a
+            journal path that is a folder or lies in a folder that does not exist.
     """
     if "://" in url:
+        import sqlalchemy.exc  # optuna's own dependency, behind its RDBStorage
+
         kwargs = {}
         if url.startswith("sqlite"):
             kwargs["engine_kwargs"] = {"connect_args": {"timeout": 30}}
-        return optuna.storages.RDBStorage(url, **kwargs)
+        try:
+            return optuna.storages.RDBStorage(url, **kwargs)
+        except ImportError as exc:  # optuna: no driver installed for this kind of database
+            raise InputError(f"optuna storage {url}: {str(exc).rstrip('.')}; install the database's driver, or "
+                             "leave --storage out to use a journal file beside the record") from exc
+        except (sqlalchemy.exc.ArgumentError, sqlalchemy.exc.OperationalError) as exc:  # bad URL, or unreachable
+            reason = str(exc).splitlines()[0]
+            raise InputError(f"optuna storage {url} cannot be opened: {reason}; check the URL, or leave "
+                             "--storage out to use a journal file beside the record") from exc
+    folder = Path(url).parent
+    if Path(url).is_dir() or not folder.is_dir():
+        what = "is a folder" if Path(url).is_dir() else f"folder {folder} does not exist"
+        raise InputError(f"optuna journal {url}: {what}; give --storage a file in an existing folder "
+                         "(or a database URL)")
     return JournalStorage(_JournalFile(url, JournalFileOpenLock(url)))
 
 

@@ -11,7 +11,7 @@ from sweep.errors import SpecError
 from sweep.study.baselines import BaselineScore, compute_baselines
 from sweep.study.edits import set_keys
 from sweep.study.inputs import (
-    WINDOW_NAMES, StudyInputs, WindowRows, build_study_dataset, feature_config, load_study_prices, min_rows,
+    MIN_WINDOW_ROWS, WINDOW_NAMES, StudyInputs, WindowRows, build_study_dataset, feature_config, load_study_prices, min_rows,
     prepare_folds, prepare_inputs, split_windows, valid_dates, valid_labels, valid_truth, window_rows,
 )
 from sweep.study.reader import diff_specs, load_spec, parse_spec, spec_from_text
@@ -30,8 +30,8 @@ from sweep.study.summaries import (
 )
 
 __all__ = [
-    "ACTIVATIONS", "FORECAST_FLOOR", "HAR_MIN_ROWS", "OBJECTIVES", "PRUNERS", "SAMPLERS", "SECTIONS",
-    "SETTINGS", "WINDOW_NAMES", "BaselineRow", "BaselineScore", "BaselineSection", "BaselinesReport",
+    "ACTIVATIONS", "FORECAST_FLOOR", "HAR_MIN_ROWS", "MIN_WINDOW_ROWS", "OBJECTIVES", "PRUNERS", "SAMPLERS",
+    "SECTIONS", "SETTINGS", "WINDOW_NAMES", "BaselineRow", "BaselineScore", "BaselineSection", "BaselinesReport",
     "DataReport", "EstimatorStats", "WindowSpan", "Choice", "DataSection", "FeatureSection",
     "Fixed", "FloatRange", "FrozenMap", "IntRange", "SearchSection", "Setting", "SettingRule", "SpecError",
     "SplitSection", "StudyInputs", "StudySection", "StudySpec", "TargetSection", "TrainingSection", "WindowRows",

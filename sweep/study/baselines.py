@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from sweep.errors import SpecError
 from sweep.study.inputs import StudyInputs
 from sweep.study.scores import fold_mean, mean_dicts, score_forecasts, window_losses
 from sweep.study.spec import StudySpec
@@ -44,18 +45,7 @@ def compute_baselines(spec: StudySpec, folds) -> list[BaselineScore]:
     folds = [folds] if isinstance(folds, StudyInputs) else list(folds)
     if folds[-1].task == "classification":
         return _class_share_baseline(folds)
-    fitted = [
-        forecast_baselines(
-            f.dataset,
-            f.windows,
-            horizons=f.horizons,
-            names=tuple(spec.baselines.include),
-            ewma_lambda=spec.baselines.ewma_lambda,
-            har_window=spec.baselines.har_window,
-            log=f.log,
-        )
-        for f in folds
-    ]
+    fitted = [_fit_baselines(spec, f, k, len(folds)) for k, f in enumerate(folds)]
     last = folds[-1]
     scores = []
     for name, result in fitted[-1].items():
@@ -76,6 +66,33 @@ def compute_baselines(spec: StudySpec, folds) -> list[BaselineScore]:
                 )
             )
     return scores
+
+
+def _fit_baselines(spec: StudySpec, inputs: StudyInputs, k: int, n_folds: int) -> dict:
+    """One fold's baselines, fitted on its training window.
+
+    Raises:
+        SpecError: the training window is too short for a baseline (the rolling HAR needs its
+            minimum rows, HAR its regression rows); names the baseline, the rows and the keys to change.
+    """
+    try:
+        return forecast_baselines(
+            inputs.dataset,
+            inputs.windows,
+            horizons=inputs.horizons,
+            names=tuple(spec.baselines.include),
+            ewma_lambda=spec.baselines.ewma_lambda,
+            har_window=spec.baselines.har_window,
+            log=inputs.log,
+        )
+    except ValueError as exc:  # trainers.baselines: too few training rows to fit or forecast a baseline
+        dates = inputs.dates("train")
+        fold = f" of fold {k + 1}" if n_folds > 1 else ""
+        raise SpecError([
+            f"baselines: {exc} (the training window{fold} has {len(dates)} rows of {spec.data.file.name}, "
+            f"{dates[0].date()} to {dates[-1].date()}); give a longer price file, lower split.valid, "
+            "split.test or split.embargo, or leave that baseline out of baselines.include"
+        ], path=spec.path) from exc
 
 
 def _class_share_baseline(folds: list[StudyInputs]) -> list[BaselineScore]:

@@ -12,9 +12,9 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from sweep.errors import DataError
+from sweep.errors import DataError, SpecError
 from sweep.study.scores import FORECAST_FLOOR, score_forecasts
-from sweep.study.spec import StudySpec
+from sweep.study.spec import PRICE_COLUMNS, StudySpec
 from trainers import metrics
 from trainers.data import PriceData, load_prices
 from trainers.features import Dataset, FeatureConfig, build_dataset, regime_labels, regime_thresholds
@@ -22,6 +22,7 @@ from trainers.price_checks import PriceFileError
 from trainers.splits import Scaler, Windows, fit_scaler, split_by_dates, split_by_fraction, walk_forward
 
 __all__ = [
+    "MIN_WINDOW_ROWS",
     "WINDOW_NAMES",
     "StudyInputs",
     "WindowRows",
@@ -39,6 +40,9 @@ __all__ = [
 ]
 
 WINDOW_NAMES = ("train", "valid", "test")
+# Fewest rows of any window: every window's losses include the Mincer-Zarnowitz R^2 of each horizon
+# (`window_losses`), a regression on a constant and the forecast, which needs 3 rows.
+MIN_WINDOW_ROWS = 3
 
 
 def min_rows(spec: StudySpec) -> int:
@@ -56,15 +60,30 @@ def load_study_prices(spec: StudySpec) -> PriceData:
     Raises:
         DataError: every problem of the file, with the fix.
     """
+    needed = min_rows(spec)
     try:
         return load_prices(
             spec.data.file,
             columns=dict(spec.data.columns),
             bad_rows=spec.data.bad_rows,
-            min_rows=min_rows(spec),
+            min_rows=needed,
         )
     except PriceFileError as exc:
-        raise DataError(f"{exc}\nfix the file, or set data.bad_rows = \"drop\" to drop bad rows") from exc
+        hints = []
+        if any(f"min_rows={needed} " in p.message for p in exc.problems):
+            hints.append(_rows_needed(spec, needed))
+        if spec.data.bad_rows == "error" and any(p.line is not None for p in exc.problems):
+            hints.append('fix the rows, or set data.bad_rows = "drop" in the study file to leave them out')
+        raise DataError("\n".join([str(exc), *hints])) from exc
+
+
+def _rows_needed(spec: StudySpec, needed: int) -> str:
+    """Where a study's `min_rows` comes from, naming the keys that set it."""
+    look_back = needed - max(spec.target.horizons) - 3 * spec.split.embargo - 30
+    return (f"the study needs {needed} rows: {look_back} of look-back (features.har_windows, features.extra_lags"
+            f"{', target.yang_zhang_window' if spec.target.estimator == 'yang_zhang' else ''}), "
+            f"{max(spec.target.horizons)} for the longest of target.horizons, 3 x split.embargo = "
+            f"{3 * spec.split.embargo} and 30 more; give a longer file or lower those settings")
 
 
 @dataclass(frozen=True)
@@ -143,14 +162,34 @@ def split_windows(spec: StudySpec, dataset: Dataset) -> list[Windows]:
     """
     split = spec.split
     n_rows = len(dataset.dates)
-    if split.folds:
-        valid_size = int(split.valid * n_rows) // split.folds
-        return walk_forward(n_rows, n_folds=split.folds, valid_size=valid_size, embargo=split.embargo,
-                            expanding=split.expanding, test=split.test)
-    if split.valid_start is not None:
-        return [split_by_dates(dataset.dates, valid_start=split.valid_start, test_start=split.test_start,
-                               embargo=split.embargo)]
-    return [split_by_fraction(n_rows, valid=split.valid, test=split.test, embargo=split.embargo)]
+    span = (f"the {n_rows} rows of {spec.data.file.name} with complete features and targets, "
+            f"{dataset.dates[0].date()} to {dataset.dates[-1].date()}")
+    try:
+        if split.folds:
+            valid_size = int(split.valid * n_rows) // split.folds
+            if valid_size < MIN_WINDOW_ROWS:
+                raise SpecError([f"split.folds: {split.folds} folds cut split.valid = {split.valid} of {span} "
+                                 f"into blocks of {valid_size} rows, fewer than {MIN_WINDOW_ROWS}; use fewer "
+                                 "folds, a larger split.valid or a longer price file"], path=spec.path)
+            folds = walk_forward(n_rows, n_folds=split.folds, valid_size=valid_size, embargo=split.embargo,
+                                 expanding=split.expanding, test=split.test)
+        elif split.valid_start is not None:
+            folds = [split_by_dates(dataset.dates, valid_start=split.valid_start, test_start=split.test_start,
+                                    embargo=split.embargo)]
+        else:
+            folds = [split_by_fraction(n_rows, valid=split.valid, test=split.test, embargo=split.embargo)]
+    except ValueError as exc:  # the split's settings do not fit the rows; trainers.splits names the window
+        raise SpecError([f"split: {exc} (on {span})"], path=spec.path) from exc
+    for k, windows in enumerate(folds):
+        for name in WINDOW_NAMES:
+            size = len(getattr(windows, name))
+            if size < MIN_WINDOW_ROWS:
+                fold = f" of fold {k + 1}" if len(folds) > 1 else ""
+                raise SpecError([f"split: the {name} window{fold} gets {size} of {span}; it needs at least "
+                                 f"{MIN_WINDOW_ROWS}: widen it (split.valid, split.test, split.valid_start, "
+                                 "split.test_start), lower split.embargo, or give a longer price file"],
+                                path=spec.path)
+    return folds
 
 
 def feature_config(spec: StudySpec) -> FeatureConfig:
@@ -170,13 +209,22 @@ def build_study_dataset(spec: StudySpec, frame: pd.DataFrame) -> Dataset:
     kwargs = {}
     if spec.target.estimator == "yang_zhang":
         kwargs["window"] = spec.target.yang_zhang_window
-    return build_dataset(
-        frame,
-        estimator=spec.target.estimator,
-        horizons=tuple(spec.target.horizons),
-        config=feature_config(spec),
-        **kwargs,
-    )
+    missing = [c for c in spec.features.exogenous if c not in frame.columns]
+    if missing:
+        extra = [c for c in frame.columns if c not in PRICE_COLUMNS]
+        raise DataError(f"features.exogenous names {', '.join(map(repr, missing))}, not a column of "
+                        f"{spec.data.file}; its extra columns are {', '.join(map(repr, extra)) or 'none'}; "
+                        "fix the names in the study file or add the column to the price file")
+    try:
+        return build_dataset(
+            frame,
+            estimator=spec.target.estimator,
+            horizons=tuple(spec.target.horizons),
+            config=feature_config(spec),
+            **kwargs,
+        )
+    except ValueError as exc:  # trainers.features: a column clash, or no complete row for these settings
+        raise DataError(f"cannot build the study's features and targets from {spec.data.file}: {exc}") from exc
 
 
 def prepare_folds(spec: StudySpec, frame: pd.DataFrame) -> list[StudyInputs]:
@@ -213,10 +261,15 @@ def _inputs_for(spec: StudySpec, dataset: Dataset, windows: Windows) -> StudyInp
     if spec.target.task == "classification":
         # The regime of the first horizon's mean variance, cut at training-window quantiles.
         first = truth_all[:, 0]
-        thresholds = regime_thresholds(first[windows.train], spec.target.classes)
+        try:
+            thresholds = regime_thresholds(first[windows.train], spec.target.classes)
+        except ValueError as exc:  # cut points that coincide: too many classes for these variances
+            raise SpecError([f"target.classes: {exc} ({len(windows.train)} training rows of "
+                             f"{spec.data.file.name})"], path=spec.path) from exc
         labels = {w: regime_labels(first[getattr(windows, w)], thresholds) for w in WINDOW_NAMES}
         y = dict(labels)
     else:
+        _check_target_varies(spec, dataset, windows, truth)
         y_scaler = fit_scaler(y_target[windows.train])
         y = {w: y_scaler.transform(y_target[getattr(windows, w)]) for w in WINDOW_NAMES}
     return StudyInputs(
@@ -234,6 +287,19 @@ def _inputs_for(spec: StudySpec, dataset: Dataset, windows: Windows) -> StudyInp
         horizons=tuple(spec.target.horizons),
         thresholds=thresholds,
     )
+
+
+def _check_target_varies(spec: StudySpec, dataset: Dataset, windows: Windows, truth: dict) -> None:
+    """A window whose target does not vary cannot be scored (no R^2, no forecast to choose): flat prices."""
+    for name in WINDOW_NAMES:
+        flat = [h for j, h in enumerate(spec.target.horizons) if np.ptp(truth[name][:, j]) == 0]
+        if flat:
+            dates = dataset.dates[getattr(windows, name)]
+            raise DataError(
+                f"{spec.data.file}: the {spec.target.estimator} variance target of horizon {flat[0]} is "
+                f"the same on every row of the {name} window ({dates[0].date()} to {dates[-1].date()}): "
+                "the prices do not move there; check open/high/low/close of those dates"
+            )
 
 
 @dataclass(frozen=True)
