@@ -46,8 +46,12 @@ MIN_WINDOW_ROWS = 3
 
 
 def min_rows(spec: StudySpec) -> int:
-    """Fewest price rows a study can use: warm-up of its longest look-back, its longest horizon and
-    room for three windows with their embargo gaps."""
+    """Fewest price rows the file check accepts: the warm-up of the study's longest look-back, its longest
+    horizon, three embargo gaps and 30 rows more.
+
+    Whether the split's windows then get `MIN_WINDOW_ROWS` rows each depends on its fractions or dates;
+    that is checked when the windows are cut (`split_windows`), naming the split's keys.
+    """
     look_back = max((*spec.features.har_windows, *spec.features.extra_lags, 22), default=22)
     if spec.target.estimator == "yang_zhang":
         look_back += spec.target.yang_zhang_window

@@ -15,7 +15,7 @@ import pytest
 from sklearn.metrics import log_loss
 from sklearn.preprocessing import StandardScaler
 
-from sweep.errors import DataError
+from sweep.errors import DataError, SpecError
 from sweep.study import (
     FORECAST_FLOOR, build_study_dataset, load_spec, load_study_prices, min_rows, prepare_folds, prepare_inputs,
     score_forecasts, set_keys, split_windows, valid_dates, valid_labels, valid_truth, window_rows,
@@ -88,20 +88,23 @@ def test_load_study_prices_refuses_a_file_below_min_rows_as_a_data_error(tmp_pat
     spec = write_spec(tmp_path, "short")
     with pytest.raises(DataError) as info:
         load_study_prices(spec)
-    # one named error with the count, the floor and both fixes (the file, or dropping bad rows)
+    # one named error with the count, the floor, where the floor comes from and the fix (no rows are bad,
+    # so dropping bad rows is not offered)
     text = str(info.value)
     assert "only 139 rows, fewer than min_rows=140" in text
-    assert 'set data.bad_rows = "drop"' in text
+    assert "3 x split.embargo = 66" in text and "give a longer file or lower those settings" in text
+    assert "bad_rows" not in text
 
 
-@pytest.mark.xfail(strict=True, raises=ValueError, reason=(
-    "min_rows promises room for three windows, but with min_rows(spec) rows the demo split leaves the "
-    "validation window empty and prepare_folds raises a plain ValueError (shown as a bug, not a user error)"))
-def test_min_rows_leaves_room_for_three_windows(tmp_path):
+def test_min_rows_passes_the_file_check_and_a_split_too_small_for_it_is_named(tmp_path):
+    # with min_rows rows the file check passes; the demo split's fractions (0.2 each, a 22-row embargo)
+    # then leave the validation window fewer than MIN_WINDOW_ROWS rows, and cutting it names the split
     spec = write_spec(tmp_path, "floor")
     write_market_csv(tmp_path / "data", seed=3, n_days=min_rows(spec), instruments=("harbor_index",))
-    (inputs,) = prepare_folds(spec, load_study_prices(spec).frame)
-    assert all(len(getattr(inputs.windows, w)) > 0 for w in WINDOWS)
+    frame = load_study_prices(spec).frame
+    assert len(frame) == min_rows(spec)
+    with pytest.raises(SpecError, match=r"split: the valid window gets \d+ of"):
+        prepare_folds(spec, frame)
 
 
 # ---------------------------------------------------------------- windows
