@@ -26,22 +26,21 @@ def replay(db: DbArg, trial: TrialArg, study: StudyOpt = None, as_json: JsonOpt 
     """Retrain a recorded trial from the record and compare its learning curve epoch by epoch."""
     from sweep.review import replay_trial
 
-    report = clean_json(replay_trial(open_record(db), trial, study=study))
+    report = replay_trial(open_record(db), trial, study=study)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    out.print(report["message"], highlight=False, markup=False)
-    if not report["identical"]:
+    out.print(report.message, highlight=False, markup=False)
+    if not report.identical:
         table = Table("epoch", "train loss diff", "valid loss diff", "score diff")
-        for e in [e for e in report["epochs"] if e["max_abs_diff"] != 0.0]:  # epochs that differ or are missing
-            table.add_row(str(e["epoch"]), fmt(e["train_loss"], 3), fmt(e["valid_loss"], 3),
-                          fmt(e["valid_score"], 3))
+        for e in [e for e in report.epochs if e.max_abs_diff != 0.0]:  # epochs that differ or are missing
+            table.add_row(str(e.epoch), fmt(e.train_loss, 3), fmt(e.valid_loss, 3), fmt(e.valid_score, 3))
         out.print(table)
-    source = report["source"]
-    if source["changed"] is None:
-        out.print(f"original price file {source['path']} is not there any more; the record's copy was used")
-    elif not source["changed"]:
-        out.print(f"original price file {source['path']} is unchanged (same SHA-256)")
+    source = report.source
+    if source.changed is None:
+        out.print(f"original price file {source.path} is not there any more; the record's copy was used")
+    elif not source.changed:
+        out.print(f"original price file {source.path} is unchanged (same SHA-256)")
 
 
 @app.command()
@@ -56,19 +55,18 @@ def confirm(
     """Retrain the best trials on fresh seeds, record the spread, and say whether the ranking holds."""
     from sweep.review import confirm_trials
 
-    report = clean_json(confirm_trials(open_record(db), study=study, top=top, n_seeds=seeds))
+    report = confirm_trials(open_record(db), study=study, top=top, n_seeds=seeds)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    name = report["objective"]
-    table = Table("trial", f"recorded {name}", "mean", "std", "min", "max", "gap mean", "gap std")
-    for r in report["trials"]:
-        o, g = r["summary"]["objective"], r["summary"]["gap"]
-        table.add_row(str(r["trial"]), fmt(r["objective_recorded"]), fmt(o["mean"]), fmt(o["std"], 3),
-                      fmt(o["min"]), fmt(o["max"]), fmt(g["mean"], 3), fmt(g["std"], 3))
+    table = Table("trial", f"recorded {report.objective}", "mean", "std", "min", "max", "gap mean", "gap std")
+    for r in report.trials:
+        o, g = r.objective_spread, r.gap_spread
+        table.add_row(str(r.trial), fmt(r.objective_recorded), fmt(o.mean), fmt(o.std, 3), fmt(o.min), fmt(o.max),
+                      fmt(g.mean, 3), fmt(g.std, 3))
     out.print(table)
-    out.print(report["ranking"]["words"], highlight=False, markup=False)
-    out.print(f"seeds: {report['seed_rule']}; recorded in {db}", highlight=False, markup=False)
+    out.print(report.ranking.words, highlight=False, markup=False)
+    out.print(f"seeds: {report.seed_rule}; recorded in {db}", highlight=False, markup=False)
 
 
 def _holdout_table(results: dict, metric_names=None) -> Table:
@@ -93,27 +91,26 @@ def holdout(
 
     command = f"volsweep holdout {db} {trial}" + (f" --study {study}" if study else "") + (" --again" if again else "")
     try:
-        report = clean_json(holdout_trial(open_record(db), trial, study=study, again=again, command=command))
+        report = holdout_trial(open_record(db), trial, study=study, again=again, command=command)
     except HoldoutAlreadyUsed as exc:
-        previous = clean_json(exc.previous)
         if as_json:
-            print_json({"refused": True, "previous": previous})
+            print_json({"refused": True, "previous": clean_json([h.to_dict() for h in exc.previous])})
         else:
-            for h in previous:
-                out.print(f"holdout #{h['sequence']} on {h['created']} (trial {h['trial']}, {h['command']}):",
+            for h in exc.previous:
+                out.print(f"holdout #{h.sequence} on {h.created} (trial {h.trial}, {h.command}):",
                           highlight=False, markup=False)
-                out.print(_holdout_table(h["results"]))
+                out.print(_holdout_table(h.results))
         raise
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    w = report["window"]
-    repeat = f" (a repeat: the test window was used {len(report['previous'])} time(s) before)" if report["again"] else ""
-    out.print(f"holdout #{report['sequence']} of study {report['study']}: trial {report['trial']} on the test window "
-              f"{w['first']}..{w['last']} ({w['rows']} rows){repeat}", highlight=False, markup=False)
-    out.print(f"network: {report['network']}", highlight=False, markup=False)
-    out.print(_holdout_table(report["results"]))
-    out.print(f"ranked by {report['objective']}: {', '.join(report['order'])}", highlight=False, markup=False)
+    w = report.window
+    repeat = f" (a repeat: the test window was used {len(report.previous)} time(s) before)" if report.again else ""
+    out.print(f"holdout #{report.sequence} of study {report.study}: trial {report.trial} on the test window "
+              f"{w.first}..{w.last} ({w.rows} rows){repeat}", highlight=False, markup=False)
+    out.print(f"network: {report.network}", highlight=False, markup=False)
+    out.print(_holdout_table(report.results))
+    out.print(f"ranked by {report.objective}: {', '.join(report.order)}", highlight=False, markup=False)
 
 
 @app.command()
@@ -130,20 +127,19 @@ def compare(
     from sweep.review import compare_forecasts
 
     command = f"volsweep compare {db} --window {window} --top {top} --reps {reps}" + (f" --study {study}" if study else "")
-    report = clean_json(compare_forecasts(open_record(db), study=study, window=window, top=top, reps=reps,
-                                      command=command))
+    report = compare_forecasts(open_record(db), study=study, window=window, top=top, reps=reps, command=command)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    out.print(f"{report['window']} window {report['first_date']}..{report['last_date']} ({report['rows']} rows), "
-              f"loss {report['objective']}; comparison #{report['sequence']} recorded", highlight=False, markup=False)
+    out.print(f"{report.window} window {report.first_date}..{report.last_date} ({report.rows} rows), "
+              f"loss {report.objective}; comparison #{report.sequence} recorded", highlight=False, markup=False)
     table = Table("model", "baseline", "horizon", "mean diff", "DM", "HLN p", "reading")
-    for r in report["dm"]:
-        table.add_row(r["model"], r["baseline"], str(r["horizon"]), fmt(r["mean_diff"], 3),
-                      fmt(r["statistic"], 3), fmt(r["hln_pvalue"], 3), r["words"])
+    for r in report.dm:
+        table.add_row(r.model, r.baseline, str(r.horizon), fmt(r.mean_diff, 3), fmt(r.statistic, 3),
+                      fmt(r.hln_pvalue, 3), r.words)
     out.print(table)
-    out.print(report["mcs"]["words"], highlight=False, markup=False)
-    out.print(report["spa"]["words"] if report["spa"] else f"SPA not run: {report['spa_skipped']}", highlight=False, markup=False)
+    out.print(report.mcs.words, highlight=False, markup=False)
+    out.print(report.spa.words if report.spa else f"SPA not run: {report.spa_skipped}", highlight=False, markup=False)
 
 
 @app.command()
@@ -168,13 +164,13 @@ def notes(db: DbArg, study: StudyOpt = None, as_json: JsonOpt = False) -> None:
     """The study's decision notes, oldest first."""
     from sweep.review import list_notes
 
-    found = clean_json(list_notes(open_record(db), study=study))
+    found = list_notes(open_record(db), study=study)
     if as_json:
-        print_json(found)
+        print_json(clean_json([n.to_dict() for n in found]))
         return
     table = Table("created", "trial", "author", "note")
     for n in found:
-        table.add_row(n["created"], fmt(n["trial"]), Text(n["author"] or "-"), Text(n["text"]))
+        table.add_row(n.created, fmt(n.trial), Text(n.author or "-"), Text(n.text))
     out.print(table)
 
 
@@ -194,14 +190,14 @@ def predict(
         checked_out_file(out_file)
     tracker = open_record(db)
     ctx = open_study(tracker, study)
-    frame, info = predict_file(ctx, tracker.load_trial(ctx.name, trial), prices)
-    line = (f"{info['rows']} forecasts of trial {info['trial']} ({info['first_date']}..{info['last_date']}); "
-            f"network: {info['network']}")
+    made = predict_file(ctx, tracker.load_trial(ctx.name, trial), prices)
+    line = (f"{made.rows} forecasts of trial {made.trial} ({made.first_date}..{made.last_date}); "
+            f"network: {made.network}")
     if out_file is None:
-        typer.echo(frame.to_csv(index=False, lineterminator="\n"), nl=False)
+        typer.echo(made.frame.to_csv(index=False, lineterminator="\n"), nl=False)
         err.print(line, highlight=False, markup=False)
     else:
-        write_csv(frame, out_file, index=False, lineterminator="\n")
+        write_csv(made.frame, out_file, index=False, lineterminator="\n")
         out.print(f"wrote {out_file}: {line}", highlight=False, markup=False)
     err.print(CAUTION, style="dim")
 
@@ -217,23 +213,23 @@ def diff(
     """What differs between two studies: settings, data, windows, best objective, package versions."""
     from sweep.review import diff_studies
 
-    report = clean_json(diff_studies(open_record(db), study_a, study_b))
+    report = diff_studies(open_record(db), study_a, study_b)
     if as_json:
-        print_json(report)
+        print_json(clean_json(report.to_dict()))
         return
-    a, b = report["a"], report["b"]
-    out.print(f"{a['name']} -> {b['name']}", highlight=False, markup=False)
-    out.print("settings: " + ("same" if not report["spec"] else ""), highlight=False, markup=False)
-    for line in report["spec"]:
+    a, b = report.a.dataset, report.b.dataset
+    out.print(f"{report.a.name} -> {report.b.name}", highlight=False, markup=False)
+    out.print("settings: " + ("same" if not report.spec else ""), highlight=False, markup=False)
+    for line in report.spec:
         out.print(f"  {line}", highlight=False, markup=False)
-    data = "same data" if report["same_data"] else (
-        f"data differs: {a['dataset']['sha256'][:12]} ({a['dataset']['first_date']}..{a['dataset']['last_date']}) -> "
-        f"{b['dataset']['sha256'][:12]} ({b['dataset']['first_date']}..{b['dataset']['last_date']})")
+    data = "same data" if report.same_data else (
+        f"data differs: {a.sha256[:12]} ({a.first_date}..{a.last_date}) -> "
+        f"{b.sha256[:12]} ({b.first_date}..{b.last_date})")
     out.print(data, highlight=False, markup=False)
-    for line in report["windows"]:
+    for line in report.windows:
         out.print(f"  {line}", highlight=False, markup=False)
-    for line in report["packages"]:
+    for line in report.packages:
         out.print(f"  package {line}", highlight=False, markup=False)
-    out.print(f"best: {report['best']}", highlight=False, markup=False)
-    if not report["comparable"]:
+    out.print(f"best: {report.best}", highlight=False, markup=False)
+    if not report.comparable:
         out.print("the objectives are not comparable (another objective, data or windows)", highlight=False, markup=False)

@@ -22,6 +22,9 @@ Every comparison is recorded (``Tracker.record_comparison``) and never overwritt
 
 from __future__ import annotations
 
+import dataclasses
+from dataclasses import dataclass
+
 import numpy as np
 import pandas as pd
 
@@ -31,9 +34,160 @@ from sweep.review.context import StudyContext, network_for, open_study, ranked_c
 from sweep.study import FORECAST_FLOOR, StudyInputs, WindowRows, window_rows
 from trainers import metrics
 
-__all__ = ["BENCHMARK", "compare_forecasts", "row_losses", "dm_words", "percent"]
+__all__ = [
+    "BENCHMARK", "BaselineLoss", "ComparisonReport", "ConfidenceSet", "DMRow", "FinalistLoss", "SPATest",
+    "compare_forecasts", "dm_words", "percent", "row_losses",
+]
 
 BENCHMARK = "har"
+
+
+@dataclass(frozen=True)
+class DMRow:
+    """One Diebold-Mariano test of a finalist against a baseline, on all horizons or one.
+
+    ``horizon`` is "all" or the horizon in days; ``dm_horizon`` the ``h`` of the test. The statistics are
+    None, and ``problem`` says why, when the loss differential has no positive long-run variance.
+    """
+
+    model: str
+    baseline: str
+    horizon: int | str
+    dm_horizon: int
+    mean_diff: float
+    statistic: float | None
+    pvalue: float | None
+    hln_statistic: float | None
+    hln_pvalue: float | None
+    n: int
+    verdict: str
+    words: str
+    problem: str | None = None
+
+    def to_dict(self) -> dict:
+        row = {"model": self.model, "baseline": self.baseline, "horizon": self.horizon,
+               "dm_horizon": self.dm_horizon, "mean_diff": self.mean_diff, "statistic": self.statistic,
+               "pvalue": self.pvalue, "hln_statistic": self.hln_statistic, "hln_pvalue": self.hln_pvalue,
+               "n": self.n}
+        if self.problem is not None:
+            row["problem"] = self.problem
+        row.update(verdict=self.verdict, words=self.words)
+        return row
+
+
+@dataclass(frozen=True)
+class ConfidenceSet:
+    """The model confidence set over the finalists and baselines (``pvalues`` by model, arch's order)."""
+
+    size: float
+    reps: int
+    seed: int
+    method: str
+    included: tuple[str, ...]
+    excluded: tuple[str, ...]
+    pvalues: dict[str, float]
+    models: tuple[str, ...]
+    words: str
+
+    def to_dict(self) -> dict:
+        return {"size": self.size, "reps": self.reps, "seed": self.seed, "method": self.method,
+                "included": list(self.included), "excluded": list(self.excluded), "pvalues": self.pvalues,
+                "models": list(self.models), "words": self.words}
+
+
+@dataclass(frozen=True)
+class SPATest:
+    """Hansen's SPA test of every complete trial against the benchmark (``pvalues``: lower, consistent, upper)."""
+
+    benchmark: str
+    n_models: int
+    best: str
+    best_mean_loss: float
+    benchmark_mean_loss: float
+    pvalues: dict[str, float]
+    better_models: tuple[str, ...]
+    level: float
+    reps: int
+    seed: int
+    beats_benchmark: bool
+    words: str
+
+    def to_dict(self) -> dict:
+        return {"benchmark": self.benchmark, "n_models": self.n_models, "best": self.best,
+                "best_mean_loss": self.best_mean_loss, "benchmark_mean_loss": self.benchmark_mean_loss,
+                "pvalues": self.pvalues, "better_models": list(self.better_models), "level": self.level,
+                "reps": self.reps, "seed": self.seed, "beats_benchmark": self.beats_benchmark, "words": self.words}
+
+
+@dataclass(frozen=True)
+class FinalistLoss:
+    """A finalist's mean loss on the window beside its recorded validation objective."""
+
+    model: str
+    trial: int
+    objective_recorded: float | None
+    mean_loss: float
+
+    def to_dict(self) -> dict:
+        return {"model": self.model, "trial": self.trial, "objective_recorded": self.objective_recorded,
+                "mean_loss": self.mean_loss}
+
+
+@dataclass(frozen=True)
+class BaselineLoss:
+    """A baseline's mean loss on the window."""
+
+    model: str
+    mean_loss: float
+
+    def to_dict(self) -> dict:
+        return {"model": self.model, "mean_loss": self.mean_loss}
+
+
+@dataclass(frozen=True)
+class ComparisonReport:
+    """Forecast comparisons on one window, as recorded (see ``compare_forecasts``).
+
+    ``spa`` is None, and ``spa_skipped`` says why, when the benchmark is not a baseline; ``networks`` names
+    where each trial's forecasts came from when not from the record. ``sequence`` and ``created`` are the
+    record's.
+    """
+
+    study: str
+    window: str
+    objective: str
+    level: float
+    rows: int
+    first_date: str
+    last_date: str
+    horizons: tuple[int, ...]
+    dm_horizon_all: int
+    finalists: tuple[FinalistLoss, ...]
+    baselines: tuple[BaselineLoss, ...]
+    dm: tuple[DMRow, ...]
+    mcs: ConfidenceSet
+    spa: SPATest | None
+    spa_skipped: str | None
+    n_trials: int
+    networks: dict[str, str]
+    sequence: int | None = None
+    created: str | None = None
+
+    def results_dict(self) -> dict:
+        """What the record keeps as ``ComparisonRecord.results``: every key but ``sequence`` and ``created``."""
+        return {
+            "study": self.study, "window": self.window, "objective": self.objective, "level": self.level,
+            "rows": self.rows, "first_date": self.first_date, "last_date": self.last_date,
+            "horizons": list(self.horizons), "dm_horizon_all": self.dm_horizon_all,
+            "finalists": [f.to_dict() for f in self.finalists], "baselines": [b.to_dict() for b in self.baselines],
+            "dm": [r.to_dict() for r in self.dm], "mcs": self.mcs.to_dict(),
+            "spa": None if self.spa is None else self.spa.to_dict(), "spa_skipped": self.spa_skipped,
+            "n_trials": self.n_trials, "networks": self.networks,
+        }
+
+    def to_dict(self) -> dict:
+        """The recorded results with ``sequence`` and ``created``, keys in print order."""
+        return {**self.results_dict(), "sequence": self.sequence, "created": self.created}
 
 
 def percent(level: float) -> str:
@@ -70,22 +224,20 @@ def dm_words(model: str, baseline: str, mean_diff: float, pvalue: float | None, 
     return "same", f"cannot tell {model} from {baseline} at the {percent(level)} level"
 
 
-def _dm_row(model, baseline, loss_m, loss_b, horizon_label, dm_horizon, level) -> dict:
-    row = {"model": model, "baseline": baseline, "horizon": horizon_label, "dm_horizon": dm_horizon,
-           "mean_diff": float(np.mean(loss_m - loss_b))}
+def _dm_row(model, baseline, loss_m, loss_b, horizon_label, dm_horizon, level) -> DMRow:
+    mean_diff = float(np.mean(loss_m - loss_b))
     try:
         r = metrics.diebold_mariano(loss_m, loss_b, horizon=dm_horizon)
-        row.update(statistic=r.statistic, pvalue=r.pvalue, hln_statistic=r.hln_statistic, hln_pvalue=r.hln_pvalue,
-                   n=r.n)
-        p = r.hln_pvalue
+        found = dict(statistic=r.statistic, pvalue=r.pvalue, hln_statistic=r.hln_statistic,
+                     hln_pvalue=r.hln_pvalue, n=r.n, problem=None)
     except ValueError as exc:  # identical losses, or a long-run variance <= 0 at this horizon
-        row.update(statistic=None, pvalue=None, hln_statistic=None, hln_pvalue=None, n=len(loss_m),
-                   problem=str(exc))
-        p = None
-    row["verdict"], row["words"] = dm_words(model, baseline, row["mean_diff"], p, level)
+        found = dict(statistic=None, pvalue=None, hln_statistic=None, hln_pvalue=None, n=len(loss_m),
+                     problem=str(exc))
+    verdict, words = dm_words(model, baseline, mean_diff, found["hln_pvalue"], level)
     if horizon_label != "all":
-        row["words"] += f" (horizon {horizon_label})"
-    return row
+        words += f" (horizon {horizon_label})"
+    return DMRow(model=model, baseline=baseline, horizon=horizon_label, dm_horizon=dm_horizon, mean_diff=mean_diff,
+                 verdict=verdict, words=words, **found)
 
 
 def _forecasts(ctx: StudyContext, trial: TrialRecord, window: str, sources: dict) -> np.ndarray:
@@ -96,17 +248,17 @@ def _forecasts(ctx: StudyContext, trial: TrialRecord, window: str, sources: dict
     return window_forecasts(ctx.inputs, network, window)
 
 
-def _mcs(frame: pd.DataFrame, size: float, reps: int, seed: int) -> dict:
+def _mcs(frame: pd.DataFrame, size: float, reps: int, seed: int) -> ConfidenceSet:
     r = metrics.model_confidence_set(frame, size=size, reps=reps, seed=seed)
     kept = ", ".join(r.included)
     left = ", ".join(r.excluded) or "none"
     words = (f"at the {percent(size)} level the model confidence set holds {kept} (the best model is among "
              f"them with probability {percent(1 - size)}); left out: {left}")
-    return {"size": size, "reps": reps, "seed": seed, "method": r.method, "included": list(r.included),
-            "excluded": list(r.excluded), "pvalues": r.pvalues, "models": list(frame.columns), "words": words}
+    return ConfidenceSet(size=size, reps=reps, seed=seed, method=r.method, included=tuple(r.included),
+                         excluded=tuple(r.excluded), pvalues=r.pvalues, models=tuple(frame.columns), words=words)
 
 
-def _spa(bench_name, bench: np.ndarray, frame: pd.DataFrame, level: float, reps: int, seed: int) -> dict:
+def _spa(bench_name, bench: np.ndarray, frame: pd.DataFrame, level: float, reps: int, seed: int) -> SPATest:
     r = metrics.superior_predictive_ability(bench, frame, reps=reps, seed=seed, size=level)
     n = frame.shape[1]
     means = frame.mean()
@@ -118,14 +270,15 @@ def _spa(bench_name, bench: np.ndarray, frame: pd.DataFrame, level: float, reps:
     else:
         words = (f"cannot say at the {percent(level)} level that any of the {n} completed trials beats "
                  f"{bench_name} {tried}")
-    return {"benchmark": bench_name, "n_models": n, "best": best, "best_mean_loss": float(means.min()),
-            "benchmark_mean_loss": float(np.mean(bench)), "pvalues": r.pvalues, "better_models": list(r.better_models),
-            "level": level, "reps": reps, "seed": seed, "beats_benchmark": bool(p < level), "words": words}
+    return SPATest(benchmark=bench_name, n_models=n, best=best, best_mean_loss=float(means.min()),
+                   benchmark_mean_loss=float(np.mean(bench)), pvalues=r.pvalues,
+                   better_models=tuple(r.better_models), level=level, reps=reps, seed=seed,
+                   beats_benchmark=bool(p < level), words=words)
 
 
 def compare_forecasts(tracker: Tracker, *, study: str | None = None, window: str = "valid", top: int = 5,
                       level: float = 0.05, mcs_size: float = 0.10, reps: int = 1000, seed: int | None = None,
-                      command: str = "volsweep compare") -> dict:
+                      command: str = "volsweep compare") -> ComparisonReport:
     """Compare the best ``top`` complete trials with the baselines on one window, and record the result.
 
     Args:
@@ -139,9 +292,11 @@ def compare_forecasts(tracker: Tracker, *, study: str | None = None, window: str
         command: the command line recorded with the result.
 
     Returns:
-        JSON-able dict: ``finalists``, ``baselines``, ``dm`` (one row per finalist, baseline and horizon,
-        with ``words``), ``mcs``, ``spa`` (None with a ``spa_skipped`` reason when HAR is not a baseline),
-        ``networks`` (trials whose forecasts came from weights or retraining), ``sequence``.
+        A ``ComparisonReport``: ``finalists``, ``baselines``, ``dm`` (a ``DMRow`` per finalist, baseline
+        and horizon, with ``words``), ``mcs`` (``ConfidenceSet``), ``spa`` (``SPATest``; None with a
+        ``spa_skipped`` reason when HAR is not a baseline), ``networks`` (trials whose forecasts came from
+        weights or retraining), ``sequence``. ``to_dict()`` gives the JSON the CLI prints;
+        ``results_dict()`` what the record keeps.
 
     Raises:
         ReviewError: bad window, no holdout yet for "test", no complete trial, or no baseline.
@@ -187,16 +342,15 @@ def compare_forecasts(tracker: Tracker, *, study: str | None = None, window: str
     else:
         spa_skipped = f"no {BENCHMARK!r} baseline on the {window} window (baselines: {', '.join(names)})"
     dates = rows.dates
-    results = {
-        "study": ctx.name, "window": window, "objective": ctx.record.objective, "level": level,
-        "rows": int(len(dates)), "first_date": dates[0].date().isoformat(), "last_date": dates[-1].date().isoformat(),
-        "horizons": list(inputs.horizons), "dm_horizon_all": longest,
-        "finalists": [{"model": trial_key(t.number), "trial": t.number, "objective_recorded": t.objective,
-                       "mean_loss": float(np.mean(losses[trial_key(t.number)]))} for t in trials[:top]],
-        "baselines": [{"model": n, "mean_loss": float(np.mean(losses[n]))} for n in names],
-        "dm": dm, "mcs": mcs, "spa": spa, "spa_skipped": spa_skipped, "n_trials": len(trials),
-        "networks": sources,
-    }
+    report = ComparisonReport(
+        study=ctx.name, window=window, objective=ctx.record.objective, level=level, rows=int(len(dates)),
+        first_date=dates[0].date().isoformat(), last_date=dates[-1].date().isoformat(),
+        horizons=tuple(inputs.horizons), dm_horizon_all=longest,
+        finalists=tuple(FinalistLoss(model=trial_key(t.number), trial=t.number, objective_recorded=t.objective,
+                                     mean_loss=float(np.mean(losses[trial_key(t.number)]))) for t in trials[:top]),
+        baselines=tuple(BaselineLoss(model=n, mean_loss=float(np.mean(losses[n]))) for n in names),
+        dm=tuple(dm), mcs=mcs, spa=spa, spa_skipped=spa_skipped, n_trials=len(trials), networks=sources,
+    )
     stored = tracker.record_comparison(ComparisonRecord(study=ctx.name, created=utc_now(), window=window,
-                                                        command=command, results=results))
-    return {**results, "sequence": stored.sequence, "created": stored.created}
+                                                        command=command, results=report.results_dict()))
+    return dataclasses.replace(report, sequence=stored.sequence, created=stored.created)

@@ -8,6 +8,7 @@ machine and every call.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import stats
@@ -19,9 +20,90 @@ from sweep.search import params_to_configs
 from sweep.study import fold_mean
 from trainers.fit import fit_mlp_stacked
 
-__all__ = ["CONFIRM_SEED_OFFSET", "confirm_seeds", "confirm_trials"]
+__all__ = [
+    "CONFIRM_SEED_OFFSET", "ConfirmReport", "ConfirmedTrial", "RankingCheck", "SpreadSummary", "confirm_seeds",
+    "confirm_trials",
+]
 
 CONFIRM_SEED_OFFSET = 1000
+
+
+@dataclass(frozen=True)
+class SpreadSummary:
+    """Mean, standard deviation (n - 1; None below two values), minimum and maximum of the finite values."""
+
+    mean: float | None
+    std: float | None
+    min: float | None
+    max: float | None
+    n_finite: int
+
+    def to_dict(self) -> dict:
+        return {"mean": self.mean, "std": self.std, "min": self.min, "max": self.max, "n_finite": self.n_finite}
+
+
+@dataclass(frozen=True)
+class ConfirmedTrial:
+    """One finalist retrained on fresh seeds: per seed its objective, gap, best epoch and stop reason."""
+
+    trial: int
+    objective_recorded: float | None
+    gap_recorded: float | None
+    seeds: tuple[tuple[int, ...], ...]
+    objectives: tuple[float | None, ...]
+    gaps: tuple[float | None, ...]
+    best_epochs: tuple[int, ...]
+    stop_reasons: tuple[str, ...]
+    objective_spread: SpreadSummary
+    gap_spread: SpreadSummary
+
+    def summary_dict(self) -> dict:
+        """``{"objective": spread, "gap": spread}``, as the record keeps it."""
+        return {"objective": self.objective_spread.to_dict(), "gap": self.gap_spread.to_dict()}
+
+    def to_dict(self) -> dict:
+        return {"trial": self.trial, "objective_recorded": self.objective_recorded,
+                "gap_recorded": self.gap_recorded, "seeds": [list(s) for s in self.seeds],
+                "objectives": list(self.objectives), "gaps": list(self.gaps), "best_epochs": list(self.best_epochs),
+                "stop_reasons": list(self.stop_reasons), "summary": self.summary_dict()}
+
+
+@dataclass(frozen=True)
+class RankingCheck:
+    """How well the recorded ranking of the finalists holds across the fresh seeds; ``words`` says it."""
+
+    leader: int
+    leader_first: int
+    n_seeds: int
+    leader_first_share: float
+    spearman: float | None
+    order_by_mean: tuple[int, ...]
+    order_recorded: tuple[int, ...]
+    words: str
+
+    def to_dict(self) -> dict:
+        return {"leader": self.leader, "leader_first": self.leader_first, "n_seeds": self.n_seeds,
+                "leader_first_share": self.leader_first_share, "spearman": self.spearman,
+                "order_by_mean": list(self.order_by_mean), "order_recorded": list(self.order_recorded),
+                "words": self.words}
+
+
+@dataclass(frozen=True)
+class ConfirmReport:
+    """The finalists of a study retrained on fresh seeds (see ``confirm_trials``)."""
+
+    study: str
+    created: str
+    objective: str
+    seed_rule: str
+    trials: tuple[ConfirmedTrial, ...]
+    ranking: RankingCheck
+
+    def to_dict(self) -> dict:
+        """The report as JSON-able values, keys in print order."""
+        return {"study": self.study, "created": self.created, "objective": self.objective,
+                "seed_rule": self.seed_rule, "trials": [t.to_dict() for t in self.trials],
+                "ranking": self.ranking.to_dict()}
 
 
 def confirm_seeds(study_seed: int, number: int, n_seeds: int) -> list[list[int]]:
@@ -43,15 +125,15 @@ def _fold_gap(results) -> float | None:
     return None if train is None or valid is None else valid - train
 
 
-def _summary(values: list[float | None]) -> dict:
+def _summary(values: list[float | None]) -> SpreadSummary:
     finite = np.array([v for v in values if v is not None], dtype=np.float64)
     if finite.size == 0:
-        return {"mean": None, "std": None, "min": None, "max": None, "n_finite": 0}
-    return {"mean": float(finite.mean()), "std": float(finite.std(ddof=1)) if finite.size > 1 else None,
-            "min": float(finite.min()), "max": float(finite.max()), "n_finite": int(finite.size)}
+        return SpreadSummary(mean=None, std=None, min=None, max=None, n_finite=0)
+    return SpreadSummary(mean=float(finite.mean()), std=float(finite.std(ddof=1)) if finite.size > 1 else None,
+                         min=float(finite.min()), max=float(finite.max()), n_finite=int(finite.size))
 
 
-def _ranking(numbers: list[int], recorded: list[float], per_seed: np.ndarray) -> dict:
+def _ranking(numbers: list[int], recorded: list[float], per_seed: np.ndarray) -> RankingCheck:
     """How well the recorded ranking of ``numbers`` holds across seeds (per_seed: n_trials x n_seeds)."""
     ranked = np.where(np.isfinite(per_seed), per_seed, np.inf)
     leader_first = int(np.sum(np.argmin(ranked, axis=0) == 0))  # numbers[0] is the recorded leader
@@ -66,12 +148,13 @@ def _ranking(numbers: list[int], recorded: list[float], per_seed: np.ndarray) ->
              f"seeds; ranked by the mean over seeds the order is {', '.join(map(str, by_mean))}")
     if rho is not None:
         words += f"; Spearman rank correlation with the recorded ranking {rho:.2f}"
-    return {"leader": numbers[0], "leader_first": leader_first, "n_seeds": n_seeds,
-            "leader_first_share": leader_first / n_seeds, "spearman": rho, "order_by_mean": by_mean,
-            "order_recorded": list(numbers), "words": words}
+    return RankingCheck(leader=numbers[0], leader_first=leader_first, n_seeds=n_seeds,
+                        leader_first_share=leader_first / n_seeds, spearman=rho, order_by_mean=tuple(by_mean),
+                        order_recorded=tuple(numbers), words=words)
 
 
-def confirm_trials(tracker: Tracker, *, study: str | None = None, top: int = 5, n_seeds: int = 8) -> dict:
+def confirm_trials(tracker: Tracker, *, study: str | None = None, top: int = 5,
+                   n_seeds: int = 8) -> ConfirmReport:
     """Retrain the best ``top`` complete trials on ``n_seeds`` fresh seeds each and record the spread.
 
     The seeds of one trial train in one stacked pass (``trainers.fit.fit_mlp_stacked``); result ``k``
@@ -81,8 +164,10 @@ def confirm_trials(tracker: Tracker, *, study: str | None = None, top: int = 5, 
     summary. The ranking check ranks trials per seed by that seed's objective (a missing one last).
 
     Returns:
-        ``{"study", "created", "seed_rule", "trials": [per trial: number, recorded objective, seeds,
-        objectives, gaps, summary], "ranking": {leader_first, leader_first_share, spearman, ...}}``.
+        A ``ConfirmReport``: ``study``, ``created``, ``objective``, ``seed_rule``, ``trials`` (per trial a
+        ``ConfirmedTrial``: number, recorded objective, seeds, objectives, gaps, their spreads) and
+        ``ranking`` (a ``RankingCheck``: leader_first, leader_first_share, spearman, ...). ``to_dict()``
+        gives the JSON the CLI prints.
 
     Raises:
         InputError: ``top`` or ``n_seeds`` below 1. ReviewError: no complete trial.
@@ -111,18 +196,20 @@ def confirm_trials(tracker: Tracker, *, study: str | None = None, top: int = 5, 
         objectives = [_fold_value([fold[k] for fold in per_fold], "valid_score") for k in range(n_seeds)]
         gaps = [_fold_gap([fold[k] for fold in per_fold]) for k in range(n_seeds)]
         results = per_fold[-1]
-        rows.append({"trial": trial.number, "objective_recorded": trial.objective, "gap_recorded": trial.gap,
-                     "seeds": seeds, "objectives": objectives, "gaps": gaps,
-                     "best_epochs": [r.best_epoch for r in results], "stop_reasons": [r.stop_reason for r in results],
-                     "summary": {"objective": _summary(objectives), "gap": _summary(gaps)}})
-    per_seed = np.array([[math.nan if v is None else v for v in r["objectives"]] for r in rows])
-    ranking = _ranking([r["trial"] for r in rows], [r["objective_recorded"] for r in rows], per_seed)
+        rows.append(ConfirmedTrial(
+            trial=trial.number, objective_recorded=trial.objective, gap_recorded=trial.gap,
+            seeds=tuple(tuple(s) for s in seeds), objectives=tuple(objectives), gaps=tuple(gaps),
+            best_epochs=tuple(r.best_epoch for r in results), stop_reasons=tuple(r.stop_reason for r in results),
+            objective_spread=_summary(objectives), gap_spread=_summary(gaps)))
+    per_seed = np.array([[math.nan if v is None else v for v in r.objectives] for r in rows])
+    ranking = _ranking([r.trial for r in rows], [r.objective_recorded for r in rows], per_seed)
     seed_rule = f"[study_seed, trial_number, {CONFIRM_SEED_OFFSET} + k], k = 0..{n_seeds - 1}"
     for r in rows:
+        row = r.to_dict()
         tracker.record_confirmation(ConfirmRecord(
-            study=ctx.name, trial=r["trial"], created=created, seeds=r["seeds"], objectives=r["objectives"],
-            gaps=r["gaps"], summary={**r["summary"], "objective_recorded": r["objective_recorded"]},
-            extra={"best_epochs": r["best_epochs"], "stop_reasons": r["stop_reasons"], "seed_rule": seed_rule,
-                   "confirmed_together": [x["trial"] for x in rows], "ranking": ranking, "stacked": True}))
-    return {"study": ctx.name, "created": created, "objective": ctx.record.objective, "seed_rule": seed_rule,
-            "trials": rows, "ranking": ranking}
+            study=ctx.name, trial=r.trial, created=created, seeds=row["seeds"], objectives=row["objectives"],
+            gaps=row["gaps"], summary={**row["summary"], "objective_recorded": r.objective_recorded},
+            extra={"best_epochs": row["best_epochs"], "stop_reasons": row["stop_reasons"], "seed_rule": seed_rule,
+                   "confirmed_together": [x.trial for x in rows], "ranking": ranking.to_dict(), "stacked": True}))
+    return ConfirmReport(study=ctx.name, created=created, objective=ctx.record.objective, seed_rule=seed_rule,
+                         trials=tuple(rows), ranking=ranking)

@@ -5,15 +5,69 @@ A second look is refused unless asked for (``again``), and then recorded beside 
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from sweep.errors import HoldoutAlreadyUsed, ReviewError
 from sweep.record import HoldoutRecord, Tracker, utc_now
-from sweep.review.context import network_for, open_study, trial_key, window_forecasts
+from sweep.review.context import WindowSpan, network_for, open_study, trial_key, window_forecasts
 from sweep.study import StudyInputs, window_losses
 from trainers import metrics
 
-__all__ = ["holdout_trial"]
+__all__ = ["HoldoutLook", "HoldoutReport", "holdout_trial"]
+
+
+@dataclass(frozen=True)
+class HoldoutLook:
+    """One recorded use of the test window: when, for which trial, by which command, and its losses.
+
+    ``results`` maps each model ("trial 17", then the baselines) to its losses by metric name.
+    """
+
+    sequence: int
+    trial: int
+    created: str
+    again: bool
+    command: str
+    results: dict[str, dict[str, float | None]]
+
+    @classmethod
+    def from_record(cls, h: HoldoutRecord) -> HoldoutLook:
+        return cls(sequence=h.sequence, trial=h.trial, created=h.created, again=h.again, command=h.command,
+                   results=h.results)
+
+    def to_dict(self) -> dict:
+        return {"sequence": self.sequence, "trial": self.trial, "created": self.created, "again": self.again,
+                "command": self.command, "results": self.results}
+
+
+@dataclass(frozen=True)
+class HoldoutReport:
+    """A trial and the baselines scored on the test window, and recorded (see ``holdout_trial``).
+
+    ``results`` maps each model to its losses by metric name (the trial first, then the baselines);
+    ``order`` ranks the models by the study's objective; ``previous`` lists the earlier looks.
+    """
+
+    study: str
+    trial: int
+    sequence: int
+    created: str
+    again: bool
+    network: str
+    objective: str
+    results: dict[str, dict[str, float | None]]
+    order: tuple[str, ...]
+    window: WindowSpan
+    previous: tuple[HoldoutLook, ...]
+
+    def to_dict(self) -> dict:
+        """The report as JSON-able values, keys in print order."""
+        return {"study": self.study, "trial": self.trial, "sequence": self.sequence, "created": self.created,
+                "again": self.again, "network": self.network, "objective": self.objective,
+                "results": self.results, "order": list(self.order), "window": self.window.to_dict(),
+                "previous": [h.to_dict() for h in self.previous]}
 
 
 def _model_losses(inputs: StudyInputs, truth_window: str, forecasts: np.ndarray) -> dict:
@@ -24,22 +78,21 @@ def _model_losses(inputs: StudyInputs, truth_window: str, forecasts: np.ndarray)
     return window_losses(inputs.truth[truth_window], forecasts)
 
 
-def _holdout_summary(h) -> dict:
-    return {"sequence": h.sequence, "trial": h.trial, "created": h.created, "again": h.again,
-            "command": h.command, "results": h.results}
-
-
 def holdout_trial(tracker: Tracker, number: int, *, study: str | None = None, again: bool = False,
-                  command: str = "volsweep holdout") -> dict:
+                  command: str = "volsweep holdout") -> HoldoutReport:
     """Score one trial and every baseline on the test window, once, and record that it was done.
 
     The network is the trial's stored weights, or retrained from the record where they are missing
     (``network`` in the result says which). Regression results carry qlike, mse_log, mse, mae and
     mz_r2 (``sweep.study.window_losses``); classification deviance and accuracy.
 
+    Returns:
+        A ``HoldoutReport``; ``to_dict()`` gives the JSON the CLI prints.
+
     Raises:
         HoldoutAlreadyUsed: the study's test window was used before and ``again`` is False; the error's
-            ``previous`` lists the earlier results. ReviewError: the trial is not complete.
+            ``previous`` lists the earlier results (``HoldoutLook`` rows).
+        ReviewError: the trial is not complete.
     """
     ctx = open_study(tracker, study)
     previous = tracker.load_holdouts(ctx.name)
@@ -48,7 +101,7 @@ def holdout_trial(tracker: Tracker, number: int, *, study: str | None = None, ag
         raise HoldoutAlreadyUsed(
             f"the test window of study {ctx.name!r} was already used on {first.created[:10]} for trial "
             f"{first.trial}; --again records a repeat, kept beside the first",
-            [_holdout_summary(h) for h in previous])
+            [HoldoutLook.from_record(h) for h in previous])
     trial = tracker.load_trial(ctx.name, number)
     if trial.state != "complete":
         raise ReviewError(f"trial {number} of study {ctx.name!r} is {trial.state}; the holdout scores a complete "
@@ -61,9 +114,7 @@ def holdout_trial(tracker: Tracker, number: int, *, study: str | None = None, ag
                                                   command=command, again=bool(previous), results=results))
     objective = ctx.record.objective
     order = sorted(results, key=lambda k: (results[k].get(objective) is None, results[k].get(objective)))
-    dates = ctx.inputs.dates("test")
-    return {"study": ctx.name, "trial": number, "sequence": stored.sequence, "created": stored.created,
-            "again": stored.again, "network": source, "objective": objective, "results": results,
-            "order": order, "window": {"rows": int(len(dates)), "first": dates[0].date().isoformat(),
-                                       "last": dates[-1].date().isoformat()},
-            "previous": [_holdout_summary(h) for h in previous]}
+    return HoldoutReport(study=ctx.name, trial=number, sequence=stored.sequence, created=stored.created,
+                         again=stored.again, network=source, objective=objective, results=results,
+                         order=tuple(order), window=WindowSpan.from_dates(ctx.inputs.dates("test")),
+                         previous=tuple(HoldoutLook.from_record(h) for h in previous))

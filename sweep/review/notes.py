@@ -2,10 +2,25 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 from sweep.errors import InputError
 from sweep.record import NoteRecord, Tracker, utc_now
 
-__all__ = ["add_decision_note", "list_notes"]
+__all__ = ["DecisionNote", "add_decision_note", "list_notes"]
+
+
+@dataclass(frozen=True)
+class DecisionNote:
+    """One decision note as the review commands show it: when, on which trial (None: the study), by whom."""
+
+    created: str
+    trial: int | None
+    author: str | None
+    text: str
+
+    def to_dict(self) -> dict:
+        return {"created": self.created, "trial": self.trial, "author": self.author, "text": self.text}
 
 
 def add_decision_note(tracker: Tracker, number: int | None, text: str, *, study: str | None = None,
@@ -24,8 +39,8 @@ def add_decision_note(tracker: Tracker, number: int | None, text: str, *, study:
     return note
 
 
-def list_notes(tracker: Tracker, *, study: str | None = None) -> list[dict]:
-    """The study's decision notes, oldest first."""
+def list_notes(tracker: Tracker, *, study: str | None = None) -> list[DecisionNote]:
+    """The study's decision notes, oldest first (``[n.to_dict() for n in notes]`` is the CLI's JSON)."""
     record = tracker.find_study(study)
-    return [{"created": n.created, "trial": n.trial, "author": n.author, "text": n.text}
+    return [DecisionNote(created=n.created, trial=n.trial, author=n.author, text=n.text)
             for n in tracker.load_notes(record.name)]

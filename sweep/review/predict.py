@@ -6,6 +6,7 @@ same code and scaled with the scaler fitted on the record's training window.
 
 from __future__ import annotations
 
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +20,33 @@ from trainers.data import load_prices
 from trainers.features import feature_frame
 from trainers.volatility import TRADING_DAYS, daily_variance, log_returns
 
-__all__ = ["predict_file"]
+__all__ = ["Prediction", "predict_file"]
+
+
+@dataclass(frozen=True)
+class Prediction:
+    """Forecasts of a trial on a price file (``frame``) and what they are: file, rows, dates, network.
+
+    ``frame`` has ``date`` then, for regression, ``variance_h<h>`` and ``annual_vol_h<h>`` per horizon;
+    for classification ``prob_<k>`` per regime and ``regime``. ``to_dict()`` gives the summary without
+    the frame.
+    """
+
+    study: str
+    trial: int
+    file: str
+    rows: int
+    first_date: str
+    last_date: str
+    network: str
+    dropped_rows: tuple[str, ...]
+    columns: tuple[str, ...]
+    frame: pd.DataFrame = field(repr=False, compare=False)
+
+    def to_dict(self) -> dict:
+        return {"study": self.study, "trial": self.trial, "file": self.file, "rows": self.rows,
+                "first_date": self.first_date, "last_date": self.last_date, "network": self.network,
+                "dropped_rows": list(self.dropped_rows), "columns": list(self.columns)}
 
 
 def _new_features(ctx: StudyContext, path: Path) -> tuple[pd.DataFrame, list]:
@@ -49,7 +76,7 @@ def _new_features(ctx: StudyContext, path: Path) -> tuple[pd.DataFrame, list]:
     return X, list(data.dropped)
 
 
-def predict_file(ctx: StudyContext, trial: TrialRecord, path: str | Path) -> tuple[pd.DataFrame, dict]:
+def predict_file(ctx: StudyContext, trial: TrialRecord, path: str | Path) -> Prediction:
     """Forecasts of a recorded trial on a new daily price file, one row per date with complete features.
 
     The file must have the columns the study used (open, high, low, close under the study's
@@ -57,10 +84,10 @@ def predict_file(ctx: StudyContext, trial: TrialRecord, path: str | Path) -> tup
     built them and scaled with the scaler fitted on the record's training window.
 
     Returns:
-        ``(frame, info)``. Regression: ``frame`` has ``date`` then, per horizon ``h``,
+        A ``Prediction``. Regression: its ``frame`` has ``date`` then, per horizon ``h``,
         ``variance_h<h>`` (mean daily variance over the next h days, level) and ``annual_vol_h<h>``
         (``sqrt(252 x variance)``). Classification: ``prob_<k>`` per regime (0 = calm) and ``regime``.
-        ``info`` names the file, the rows, the dates and where the network came from.
+        The other fields name the file, the rows, the dates and where the network came from.
 
     Raises:
         PriceFileError: the file is missing or has bad rows (every problem listed).
@@ -80,9 +107,6 @@ def predict_file(ctx: StudyContext, trial: TrialRecord, path: str | Path) -> tup
             variance = forecasts[:, j]  # already level and floored (StudyInputs.to_level)
             out[f"variance_h{h}"] = variance
             out[f"annual_vol_h{h}"] = np.sqrt(TRADING_DAYS * variance)
-    info = {
-        "study": ctx.name, "trial": trial.number, "file": str(path), "rows": int(len(out)),
-        "first_date": out["date"].iloc[0], "last_date": out["date"].iloc[-1], "network": source,
-        "dropped_rows": [str(p) for p in dropped], "columns": list(out.columns),
-    }
-    return out, info
+    return Prediction(study=ctx.name, trial=trial.number, file=str(path), rows=int(len(out)),
+                      first_date=out["date"].iloc[0], last_date=out["date"].iloc[-1], network=source,
+                      dropped_rows=tuple(str(p) for p in dropped), columns=tuple(out.columns), frame=out)

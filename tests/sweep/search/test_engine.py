@@ -325,9 +325,9 @@ def test_walk_forward_trials_replay_fold_by_fold(folds_study):
     _, summary = folds_study
     tracker = Tracker.open(summary.record_path, create=False)
     report = review.replay_trial(tracker, 0, study="folds")
-    assert report["identical"], report["message"]
-    assert report["n_epochs_replayed"] == report["n_epochs_recorded"]
-    assert report["objective_replayed"] == report["objective_recorded"]
+    assert report.identical, report.message
+    assert report.n_epochs_replayed == report.n_epochs_recorded
+    assert report.objective_replayed == report.objective_recorded
 
 
 def test_walk_forward_optuna_values_equal_the_record(folds_study):
