@@ -8,7 +8,7 @@ confidence set and SPA result (the dicts ``sweep.review.compare_forecasts`` retu
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from typing import Any
 
 from sweep.record import Tracker
@@ -25,21 +25,8 @@ __all__ = [
 ]
 
 
-class _ByName:
-    """Lets a review value's fields be read by name, ``value["field"]``, as well as ``value.field``.
-
-    Kept for callers that still read the review section as the mapping it used to be
-    (tests/sweep/review/test_compare.py); new code reads attributes. Only field names are keys.
-    """
-
-    def __getitem__(self, name: str):
-        if name not in {f.name for f in fields(self)}:
-            raise KeyError(name)
-        return getattr(self, name)
-
-
 @dataclass(frozen=True)
-class Note(_ByName):
+class Note:
     """A decision note; ``trial`` None is a note on the whole study."""
 
     created: str
@@ -49,7 +36,7 @@ class Note(_ByName):
 
 
 @dataclass(frozen=True)
-class Confirmation(_ByName):
+class Confirmation:
     """A trial retrained on fresh seeds: one objective and gap per seed, as recorded."""
 
     created: str
@@ -62,7 +49,7 @@ class Confirmation(_ByName):
 
 
 @dataclass(frozen=True)
-class RankingCheck(_ByName):
+class RankingCheck:
     """One confirm run's sentence on whether the recorded ranking holds on fresh seeds."""
 
     created: str
@@ -70,7 +57,7 @@ class RankingCheck(_ByName):
 
 
 @dataclass(frozen=True)
-class HoldoutLook(_ByName):
+class HoldoutLook:
     """One look at the test window.
 
     Attributes:
@@ -92,7 +79,7 @@ class HoldoutLook(_ByName):
 
 
 @dataclass(frozen=True)
-class Comparison(_ByName):
+class Comparison:
     """The latest recorded forecast comparison on one window.
 
     Attributes:
@@ -121,7 +108,7 @@ class Comparison(_ByName):
 
 
 @dataclass(frozen=True)
-class BoardReview(_ByName):
+class BoardReview:
     """The review records of one study.
 
     Attributes:

@@ -6,7 +6,6 @@ shaped like ``sweep.review.compare_forecasts`` results); expected rows are worke
 
 from __future__ import annotations
 
-import pytest
 
 from sweep.board import BoardReview, Comparison, Confirmation, HoldoutLook, Note, RankingCheck, collect_board
 from sweep.board.reviews import collect_comparisons, collect_review
@@ -94,15 +93,3 @@ def test_collect_comparisons_keeps_the_latest_per_window(tracker):
 def test_board_review_is_empty_without_review_records(data):
     assert data.review == BoardReview()
     assert not data.review.has_records and not data.has_review
-
-
-def test_board_review_fields_read_by_name_too(tracker):
-    write_review(tracker)
-    review = collect_review(tracker, "larkspur")
-    # the mapping reading tests/sweep/review/test_compare.py still uses
-    assert review["holdouts"] is review.holdouts and review["n_holdouts"] == 2
-    assert review["notes"][0]["text"] == "Trial 1 chosen: beats HAR."
-    # only fields are keys: not the has_records property, not an unknown name
-    for name in ("has_records", "nope"):
-        with pytest.raises(KeyError):
-            review[name]

@@ -56,8 +56,8 @@ def test_release_record_replays_a_trial(release):
     # round differently in the last bits, so the check here is a tolerance far below any real change
     with Tracker.open(release / "study.sqlite", create=False) as tracker:
         result = replay_trial(tracker, 1)
-    assert result["n_epochs_replayed"] == result["n_epochs_recorded"]
-    assert result["max_abs_diff"] < 1e-6
+    assert result.n_epochs_replayed == result.n_epochs_recorded
+    assert result.max_abs_diff < 1e-6
 
 
 def test_release_study_resumes_without_changing_its_trials(release):

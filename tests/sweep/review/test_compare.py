@@ -296,9 +296,9 @@ def test_board_shows_the_latest_comparison_per_window(writable_record, tmp_path)
         on_test = compare.compare_forecasts(t, window="test", top=1, reps=50)
         shown = collect_board(t, STUDY).review
     # one entry per window, the newest of each; every comparison counted
-    assert [(c["window"], c["sequence"]) for c in shown["comparisons"]] == [("valid", 2), ("test", 3)]
-    assert shown["n_comparisons"] == 3
-    assert shown["comparisons"][0]["dm"] == [d.to_dict() for d in latest.dm if d.horizon == "all"]
+    assert [(c.window, c.sequence) for c in shown.comparisons] == [("valid", 2), ("test", 3)]
+    assert shown.n_comparisons == 3
+    assert list(shown.comparisons[0].dm) == [d.to_dict() for d in latest.dm if d.horizon == "all"]
     page = html.unescape(write_study_board(db, study=STUDY, out=tmp_path / "board.html").read_text(encoding="utf-8"))
     assert "Forecast comparisons" in page
     assert latest.mcs.words in page and on_test.spa.words in page

@@ -119,4 +119,4 @@ def test_board_says_whether_the_ranking_holds_after_confirm(writable_record):
         report = review.confirm_trials(tracker, top=2, n_seeds=2)
         data = collect_board(tracker, STUDY)
     # one sentence per confirm run, the one confirm_trials printed
-    assert [r["words"] for r in data.review["rankings"]] == [report.ranking.words]
+    assert [r.words for r in data.review.rankings] == [report.ranking.words]
