@@ -19,7 +19,7 @@ Example:
 from sweep.board.data import N_CURVES, collect_board, saved_share
 from sweep.board.figures import PLOT_CONFIG, build_figures
 from sweep.board.render import default_board_path, render_board, write_board, write_study_board
-from sweep.board.reviews import BoardReview, Comparison, Confirmation, HoldoutLook, Note, RankingCheck
+from sweep.board.reviews import BoardReview, Comparison, Confirmation, HoldoutShown, Note, RankingSentence
 from sweep.board.values import (
     BestBaseline,
     BestTrial,
@@ -39,7 +39,7 @@ from sweep.errors import BoardError
 
 __all__ = [
     "N_CURVES", "PLOT_CONFIG", "BestBaseline", "BestTrial", "BoardData", "BoardError", "BoardHeader", "BoardReview",
-    "Comparison", "Confirmation", "DatasetFacts", "EpochCount", "EpochUse", "GapPoint", "GapPoints", "HoldoutLook",
-    "LearningCurve", "MadeBy", "Note", "ProgressPoint", "RankingCheck", "TargetFacts", "build_figures",
+    "Comparison", "Confirmation", "DatasetFacts", "EpochCount", "EpochUse", "GapPoint", "GapPoints", "HoldoutShown",
+    "LearningCurve", "MadeBy", "Note", "ProgressPoint", "RankingSentence", "TargetFacts", "build_figures",
     "collect_board", "default_board_path", "render_board", "saved_share", "write_board", "write_study_board",
 ]

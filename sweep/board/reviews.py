@@ -17,9 +17,9 @@ __all__ = [
     "BoardReview",
     "Comparison",
     "Confirmation",
-    "HoldoutLook",
+    "HoldoutShown",
     "Note",
-    "RankingCheck",
+    "RankingSentence",
     "collect_comparisons",
     "collect_review",
 ]
@@ -49,7 +49,7 @@ class Confirmation:
 
 
 @dataclass(frozen=True)
-class RankingCheck:
+class RankingSentence:
     """One confirm run's sentence on whether the recorded ranking holds on fresh seeds."""
 
     created: str
@@ -57,7 +57,7 @@ class RankingCheck:
 
 
 @dataclass(frozen=True)
-class HoldoutLook:
+class HoldoutShown:
     """One look at the test window.
 
     Attributes:
@@ -120,8 +120,8 @@ class BoardReview:
 
     notes: tuple[Note, ...] = ()
     confirmations: tuple[Confirmation, ...] = ()
-    rankings: tuple[RankingCheck, ...] = ()
-    holdouts: tuple[HoldoutLook, ...] = ()
+    rankings: tuple[RankingSentence, ...] = ()
+    holdouts: tuple[HoldoutShown, ...] = ()
     n_holdouts: int = 0
     comparisons: tuple[Comparison, ...] = ()
     n_comparisons: int = 0
@@ -145,18 +145,18 @@ def collect_review(tracker: Tracker, study: str, *, objective: str | None = None
                                        gaps=c.gaps, summary=c.summary, extra=c.extra)
                           for c in tracker.load_confirmations(study))
     # one sentence per confirm run (its confirmations share `created`): does the ranking hold?
-    rankings: list[RankingCheck] = []
+    rankings: list[RankingSentence] = []
     for c in confirmations:
         words = (c.extra or {}).get("ranking", {}).get("words")
         if words and all(r.created != c.created for r in rankings):
-            rankings.append(RankingCheck(created=c.created, words=words))
+            rankings.append(RankingSentence(created=c.created, words=words))
     holdouts = tracker.load_holdouts(study)
     n_uses = len(holdouts)
     looks = []
     for h in holdouts:
         metrics = sorted({m for v in h.results.values() if isinstance(v, dict) for m in v},
                          key=lambda m: (m != objective, m))  # the study's objective first
-        looks.append(HoldoutLook(sequence=h.sequence, trial=h.trial, created=h.created, command=h.command,
+        looks.append(HoldoutShown(sequence=h.sequence, trial=h.trial, created=h.created, command=h.command,
                                  again=h.again, results=h.results, metrics=tuple(metrics), n_uses=n_uses,
                                  repeat=bool(h.again or (h.sequence or 1) > 1)))
     comparisons, n_comparisons = collect_comparisons(tracker, study)

@@ -19,10 +19,10 @@ from sweep.review.confirm import (
     CONFIRM_SEED_OFFSET, ConfirmedTrial, ConfirmReport, RankingCheck, SpreadSummary, confirm_seeds, confirm_trials,
 )
 from sweep.review.context import (
-    NETWORK_RETRAINED, NETWORK_STORED, StudyContext, WindowSpan, network_for, network_forecasts, one_blas_thread,
+    NETWORK_RETRAINED, NETWORK_STORED, StudyContext, network_for, network_forecasts, one_blas_thread,
     open_study, ranked_complete, retrain_folds, retrain_trial, trial_key, window_forecasts,
 )
-from sweep.review.diff import DatasetSummary, StudyDiff, StudySide, diff_studies
+from sweep.review.diff import StudyDiff, StudySide, diff_studies
 from sweep.review.holdout import HoldoutLook, HoldoutReport, holdout_trial
 from sweep.review.notes import DecisionNote, add_decision_note, list_notes
 from sweep.review.predict import Prediction, predict_file
@@ -33,10 +33,10 @@ from sweep.review.replay import (
 
 __all__ = [
     "BENCHMARK", "CONFIRM_SEED_OFFSET", "NETWORK_RETRAINED", "NETWORK_STORED", "BaselineLoss", "ComparisonReport",
-    "ConfidenceSet", "ConfirmReport", "ConfirmedTrial", "DMRow", "DatasetSummary", "DecisionNote",
+    "ConfidenceSet", "ConfirmReport", "ConfirmedTrial", "DMRow", "DecisionNote",
     "EnvironmentCheck", "EnvironmentDifference", "EpochDifference", "FinalistLoss", "HoldoutAlreadyUsed",
     "HoldoutLook", "HoldoutReport", "Prediction", "RankingCheck", "ReplayReport", "ReviewError", "SPATest",
-    "SourceStatus", "SpreadSummary", "StudyContext", "StudyDiff", "StudySide", "WindowSpan", "add_decision_note",
+    "SourceStatus", "SpreadSummary", "StudyContext", "StudyDiff", "StudySide", "add_decision_note",
     "compare_forecasts", "confirm_seeds", "confirm_trials", "diff_studies", "dm_words", "environment_differences",
     "holdout_trial", "list_notes", "network_for", "network_forecasts", "one_blas_thread", "open_study", "percent",
     "predict_file", "ranked_complete", "replay_trial", "retrain_folds", "retrain_trial", "row_losses", "trial_key",

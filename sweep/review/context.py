@@ -31,7 +31,6 @@ __all__ = [
     "NETWORK_RETRAINED",
     "NETWORK_STORED",
     "StudyContext",
-    "WindowSpan",
     "network_for",
     "network_forecasts",
     "one_blas_thread",
@@ -64,24 +63,6 @@ class StudyContext:
     @property
     def all_folds(self) -> tuple[StudyInputs, ...]:
         return self.folds or (self.inputs,)
-
-
-@dataclass(frozen=True)
-class WindowSpan:
-    """One window of a study's rows: how many, and the first and last date (ISO text)."""
-
-    rows: int
-    first: str
-    last: str
-
-    @classmethod
-    def from_dates(cls, dates) -> WindowSpan:
-        """The span of a non-empty ``DatetimeIndex`` (``StudyInputs.dates(window)``)."""
-        return cls(rows=int(len(dates)), first=dates[0].date().isoformat(), last=dates[-1].date().isoformat())
-
-    def to_dict(self) -> dict:
-        """``{"rows", "first", "last"}``."""
-        return {"rows": self.rows, "first": self.first, "last": self.last}
 
 
 def trial_key(number: int) -> str:

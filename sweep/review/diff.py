@@ -4,28 +4,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from sweep.record import Tracker
-from sweep.review.context import WindowSpan, open_study, ranked_complete
-from sweep.study import diff_specs
+from sweep.record import DatasetSummary, Tracker
+from sweep.review.context import open_study, ranked_complete
+from sweep.study import WindowSpan, diff_specs
 
-__all__ = ["DatasetSummary", "StudyDiff", "StudySide", "diff_studies"]
+__all__ = ["StudyDiff", "StudySide", "diff_studies"]
 
 WINDOWS = ("train", "valid", "test")
-
-
-@dataclass(frozen=True)
-class DatasetSummary:
-    """The price rows a study ran on: their SHA-256, the file they came from, how many and which dates."""
-
-    sha256: str
-    source: str
-    rows: int
-    first_date: str
-    last_date: str
-
-    def to_dict(self) -> dict:
-        return {"sha256": self.sha256, "source": self.source, "rows": self.rows, "first_date": self.first_date,
-                "last_date": self.last_date}
 
 
 @dataclass(frozen=True)

@@ -11,8 +11,8 @@ import numpy as np
 
 from sweep.errors import HoldoutAlreadyUsed, ReviewError
 from sweep.record import HoldoutRecord, Tracker, utc_now
-from sweep.review.context import WindowSpan, network_for, open_study, trial_key, window_forecasts
-from sweep.study import StudyInputs, window_losses
+from sweep.review.context import network_for, open_study, trial_key, window_forecasts
+from sweep.study import WindowSpan, StudyInputs, window_losses
 from trainers import metrics
 
 __all__ = ["HoldoutLook", "HoldoutReport", "holdout_trial"]

@@ -11,7 +11,7 @@ from sweep.errors import SpecError
 from sweep.study.baselines import BaselineScore, compute_baselines
 from sweep.study.edits import set_keys
 from sweep.study.inputs import (
-    MIN_WINDOW_ROWS, WINDOW_NAMES, StudyInputs, WindowRows, build_study_dataset, feature_config, load_study_prices, min_rows,
+    MIN_WINDOW_ROWS, WINDOW_NAMES, StudyInputs, WindowRows, WindowSpan, build_study_dataset, feature_config, load_study_prices, min_rows,
     prepare_folds, prepare_inputs, split_windows, valid_dates, valid_labels, valid_truth, window_rows,
 )
 from sweep.study.reader import diff_specs, load_spec, parse_spec, spec_from_text
@@ -25,7 +25,7 @@ from sweep.study.spec import (
     SearchSection, SplitSection, StudySection, StudySpec, TargetSection, TrainingSection,
 )
 from sweep.study.summaries import (
-    BaselineRow, BaselinesReport, DataReport, EstimatorStats, WindowSpan, baselines_report, data_report,
+    BaselineRow, BaselinesReport, DataReport, EstimatorStats, baselines_report, data_report,
     features_frame,
 )
 

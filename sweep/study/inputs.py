@@ -26,6 +26,7 @@ __all__ = [
     "WINDOW_NAMES",
     "StudyInputs",
     "WindowRows",
+    "WindowSpan",
     "build_study_dataset",
     "feature_config",
     "load_study_prices",
@@ -304,6 +305,24 @@ def _check_target_varies(spec: StudySpec, dataset: Dataset, windows: Windows, tr
                 f"the same on every row of the {name} window ({dates[0].date()} to {dates[-1].date()}): "
                 "the prices do not move there; check open/high/low/close of those dates"
             )
+
+
+@dataclass(frozen=True)
+class WindowSpan:
+    """One window of a study's rows: how many, and the first and last date (ISO text)."""
+
+    rows: int
+    first: str
+    last: str
+
+    @classmethod
+    def from_dates(cls, dates) -> WindowSpan:
+        """The span of a non-empty ``DatetimeIndex`` (``StudyInputs.dates(window)``)."""
+        return cls(rows=int(len(dates)), first=dates[0].date().isoformat(), last=dates[-1].date().isoformat())
+
+    def to_dict(self) -> dict:
+        """``{"rows", "first", "last"}``."""
+        return {"rows": self.rows, "first": self.first, "last": self.last}
 
 
 @dataclass(frozen=True)

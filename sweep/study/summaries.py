@@ -18,14 +18,14 @@ import numpy as np
 import pandas as pd
 
 from sweep.study.baselines import compute_baselines
-from sweep.study.inputs import StudyInputs, load_study_prices, prepare_inputs
+from sweep.study.inputs import WindowSpan, load_study_prices, prepare_inputs
 from sweep.study.spec import StudySpec
 from trainers import volatility
 from trainers.data import load_prices
 from trainers.price_checks import PriceFileError
 
 __all__ = [
-    "BaselineRow", "BaselinesReport", "DataReport", "EstimatorStats", "WindowSpan", "baselines_report",
+    "BaselineRow", "BaselinesReport", "DataReport", "EstimatorStats", "baselines_report",
     "data_report", "features_frame",
 ]
 
@@ -153,19 +153,6 @@ def data_report(path: Path, *, columns: dict | None = None, min_rows: int = 0) -
 # ---------------------------------------------------------------- baselines
 
 @dataclass(frozen=True)
-class WindowSpan:
-    """The rows of one window of a study: how many, and the first and last ISO dates."""
-
-    name: str
-    rows: int
-    first: str
-    last: str
-
-    def to_dict(self) -> dict:
-        return {"rows": self.rows, "first": self.first, "last": self.last}
-
-
-@dataclass(frozen=True)
 class BaselineRow:
     """One baseline on one window: its objective, every loss, and its fitted parameters (read-only)."""
 
@@ -197,12 +184,12 @@ class BaselinesReport:
 
     study: str
     objective: str
-    windows: tuple[WindowSpan, ...]
+    windows: dict[str, WindowSpan]
     baselines: tuple[BaselineRow, ...]
 
     def to_dict(self) -> dict:
         return {"study": self.study, "objective": self.objective,
-                "windows": {w.name: w.to_dict() for w in self.windows},
+                "windows": {name: w.to_dict() for name, w in self.windows.items()},
                 "baselines": [b.to_dict() for b in self.baselines]}
 
 
@@ -213,16 +200,10 @@ def baselines_report(spec: StudySpec) -> BaselinesReport:
     return BaselinesReport(
         study=spec.study.name,
         objective=spec.study.objective,
-        windows=tuple(_window_span(inputs, w) for w in ("train", "valid", "test")),
+        windows={w: WindowSpan.from_dates(inputs.dates(w)) for w in ("train", "valid", "test")},
         baselines=tuple(BaselineRow(name=b.name, window=b.window, objective=b.objective, losses=b.losses,
                                     params=b.params) for b in compute_baselines(spec, inputs)),
     )
-
-
-def _window_span(inputs: StudyInputs, window: str) -> WindowSpan:
-    dates = inputs.dates(window)
-    return WindowSpan(name=window, rows=int(len(dates)), first=dates[0].date().isoformat(),
-                      last=dates[-1].date().isoformat())
 
 
 def features_frame(spec: StudySpec) -> pd.DataFrame:

@@ -7,7 +7,7 @@ shaped like ``sweep.review.compare_forecasts`` results); expected rows are worke
 from __future__ import annotations
 
 
-from sweep.board import BoardReview, Comparison, Confirmation, HoldoutLook, Note, RankingCheck, collect_board
+from sweep.board import BoardReview, Comparison, Confirmation, HoldoutShown, Note, RankingSentence, collect_board
 from sweep.board.reviews import collect_comparisons, collect_review
 from sweep.record import ConfirmRecord, HoldoutRecord
 
@@ -36,7 +36,7 @@ def test_collect_review_rows_carry_what_was_recorded(tracker):
         created="2026-02-01T10:00:00+00:00", trial=1, seeds=[[3, 101], [3, 102]], objectives=[0.21, 0.22],
         gaps=[0.011, 0.012], summary={"mean": 0.215, "sd": 0.007}, extra={}),)
     results = {"trial 1": {"qlike": 0.24, "mse_log": 0.5}, "har": {"qlike": 0.29}}
-    assert review.holdouts[1] == HoldoutLook(
+    assert review.holdouts[1] == HoldoutShown(
         sequence=2, trial=1, created="2026-02-03T10:00:00+00:00", command="volsweep holdout ...", again=True,
         results=results, metrics=("qlike", "mse_log"), n_uses=2, repeat=True)
     assert review.n_holdouts == 2
@@ -59,9 +59,9 @@ def test_collect_review_one_ranking_sentence_per_confirm_run(tracker):
             gaps=[0.01, 0.01], summary={"mean": 0.205}, extra={"ranking": {"words": words}}))
     review = collect_review(tracker, "larkspur")
     assert len(review.confirmations) == 3
-    assert review.rankings == (RankingCheck(created="2026-02-01T10:00:00+00:00",
+    assert review.rankings == (RankingSentence(created="2026-02-01T10:00:00+00:00",
                                             words="trial 1 stays first on 2 of 2 seeds"),
-                               RankingCheck(created="2026-02-04T10:00:00+00:00",
+                               RankingSentence(created="2026-02-04T10:00:00+00:00",
                                             words="trial 1 stays first on 1 of 2 seeds"))
 
 

@@ -6,10 +6,9 @@ the training loop run directly (``trainers.fit.fit_mlp``) for a retrained networ
 """
 
 import numpy as np
-import pandas as pd
 import pytest
-
 from review_study import STUDY, fit_alone, trials_in_state
+
 from sweep import review
 from sweep.errors import ReviewError
 from sweep.record import StudyNotFound, TrialRecord
@@ -82,13 +81,6 @@ def test_ranked_complete_orders_by_objective_then_number():
               trial(3, "complete", None), trial(4, "complete", 0.2), trial(5, "complete", float("inf"))]
     # pruned, missing and infinite objectives are left out; the tie at 0.2 goes to the lower number
     assert [t.number for t in review.ranked_complete(trials)] == [2, 4, 0]
-
-
-def test_window_span_from_dates():
-    dates = pd.DatetimeIndex(["2015-06-17", "2015-06-18", "2016-01-19"])
-    span = review.WindowSpan.from_dates(dates)
-    assert span == review.WindowSpan(rows=3, first="2015-06-17", last="2016-01-19")
-    assert span.to_dict() == {"rows": 3, "first": "2015-06-17", "last": "2016-01-19"}
 
 
 def test_trial_key_names_a_trial_beside_the_baselines():

@@ -11,14 +11,28 @@ import hashlib
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.metrics import log_loss
 from sklearn.preprocessing import StandardScaler
 
 from sweep.errors import DataError, SpecError
 from sweep.study import (
-    FORECAST_FLOOR, build_study_dataset, load_spec, load_study_prices, min_rows, prepare_folds, prepare_inputs,
-    score_forecasts, set_keys, split_windows, valid_dates, valid_labels, valid_truth, window_rows,
+    FORECAST_FLOOR,
+    WindowSpan,
+    build_study_dataset,
+    load_spec,
+    load_study_prices,
+    min_rows,
+    prepare_folds,
+    prepare_inputs,
+    score_forecasts,
+    set_keys,
+    split_windows,
+    valid_dates,
+    valid_labels,
+    valid_truth,
+    window_rows,
 )
 from sweep.study.demo import demo_study_text
 from trainers import metrics
@@ -302,3 +316,10 @@ def test_window_rows_carries_the_labels_of_a_classification_study(market):
     np.testing.assert_array_equal(rows.labels, np.concatenate([f.labels["valid"] for f in folds]))
     np.testing.assert_array_equal(rows.labels, valid_labels(folds))
     np.testing.assert_array_equal(window_rows(folds, "test").labels, folds[-1].labels["test"])
+
+
+def test_window_span_from_dates():
+    dates = pd.DatetimeIndex(["2015-06-17", "2015-06-18", "2016-01-19"])
+    span = WindowSpan.from_dates(dates)
+    assert span == WindowSpan(rows=3, first="2015-06-17", last="2016-01-19")
+    assert span.to_dict() == {"rows": 3, "first": "2015-06-17", "last": "2016-01-19"}

@@ -201,13 +201,13 @@ def test_baselines_report_scores_every_baseline_on_both_windows(spec, baselines)
 
 
 def test_baselines_report_windows_follow_the_split_with_the_embargo(spec, baselines):
-    windows = {w.name: w for w in baselines.windows}
+    windows = baselines.windows
     assert list(windows) == ["train", "valid", "test"]
     frame = features_frame(spec)
     labels = frame["window"].to_numpy()
     dates = [d.date().isoformat() for d in frame.index]
-    for w in windows.values():
-        rows = np.flatnonzero(labels == w.name)
+    for name, w in windows.items():
+        rows = np.flatnonzero(labels == name)
         assert (w.rows, w.first, w.last) == (len(rows), dates[rows[0]], dates[rows[-1]])
     # the study file's embargo (22 rows) separates the windows
     assert dates.index(windows["valid"].first) - dates.index(windows["train"].last) - 1 == 22
