@@ -29,7 +29,7 @@ from sweep.board.values import (
     TargetFacts,
 )
 from sweep.errors import SpecError
-from sweep.record import TRIAL_STATES, StudyRecord, Tracker, code_version, finite_or_none, rank_rows
+from sweep.record import TRIAL_STATES, StudyRecord, Tracker, code_version, is_finite, rank_rows
 from sweep.search import SettingImportance, setting_importance
 from sweep.study import Fixed, StudySpec, spec_from_text
 
@@ -50,10 +50,6 @@ __all__ = [
 
 N_CURVES = 8
 SCATTER_SETTINGS = ("hidden_units", "dropout")
-
-
-def _finite(value) -> bool:
-    return finite_or_none(value) is not None
 
 
 def read_spec(record: StudyRecord) -> tuple[StudySpec | None, str | None]:
@@ -89,13 +85,13 @@ def collect_rows(record, spec, trials, baselines) -> tuple[list[dict], tuple[str
     """
     rows = rank_rows(trials, baselines, sort="objective")
     if record.direction == "maximize":
-        rows.sort(key=lambda r: (not _finite(r["objective"]), -(r["objective"] if _finite(r["objective"]) else 0)))
-        best = max((b.objective for b in baselines if _finite(b.objective)), default=None)
+        rows.sort(key=lambda r: (not is_finite(r["objective"]), -(r["objective"] if is_finite(r["objective"]) else 0)))
+        best = max((b.objective for b in baselines if is_finite(b.objective)), default=None)
         for i, row in enumerate(rows, start=1):
             row["rank"] = i
-            beats = row["kind"] == "trial" and _finite(row["objective"]) and best is not None
+            beats = row["kind"] == "trial" and is_finite(row["objective"]) and best is not None
             row["beats_best_baseline"] = (row["objective"] > best) if beats else None
-    has_baseline = any(_finite(b.objective) for b in baselines)
+    has_baseline = any(is_finite(b.objective) for b in baselines)
     names = _searched(spec, trials)
     kinds = {}
     for name in names:
@@ -159,8 +155,8 @@ def collect_header(record, dataset, spec, spec_problem, trials, rows, epochs: Ep
     starts = [t.started for t in trials if t.started]
     ends = [t.finished for t in trials if t.finished]
     trial_rows = [r for r in rows if r["kind"] == "trial"]
-    complete = [r for r in trial_rows if r["state"] == "complete" and _finite(r["objective"])]
-    base = [r for r in rows if r["kind"] == "baseline" and _finite(r["objective"])]
+    complete = [r for r in trial_rows if r["state"] == "complete" and is_finite(r["objective"])]
+    base = [r for r in rows if r["kind"] == "baseline" and is_finite(r["objective"])]
     target = None
     fixed, space = {}, {}
     if spec is not None:
@@ -215,7 +211,7 @@ def collect_progress(trials, direction: str = "minimize") -> tuple[ProgressPoint
     better = max if direction == "maximize" else min
     best, out = None, []
     for t in sorted(trials, key=lambda t: t.number):
-        if t.state == "complete" and _finite(t.objective):
+        if t.state == "complete" and is_finite(t.objective):
             best = t.objective if best is None else better(best, t.objective)
         out.append(ProgressPoint(trial=t.number, state=t.state, objective=t.objective, running_best=best))
     return tuple(out)
@@ -226,7 +222,7 @@ def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURV
 
     With walk-forward folds, the curve of the latest fold: the network a holdout or a forecast uses.
     """
-    best = [r for r in rows if r["kind"] == "trial" and r["state"] == "complete" and _finite(r["objective"])]
+    best = [r for r in rows if r["kind"] == "trial" and r["state"] == "complete" and is_finite(r["objective"])]
     curves = []
     for rank, row in enumerate(best[:n_curves], start=1):
         epochs = tracker.load_trial(study, row["trial"]).epochs
@@ -242,17 +238,17 @@ def collect_curves(tracker, study: str, rows: list[dict], n_curves: int = N_CURV
 
 def collect_importance(trials, spec, direction: str = "minimize") -> SettingImportance:
     """Setting importance of the complete trials (``sweep.search.setting_importance``) over the searched settings."""
-    done = [t for t in trials if t.state == "complete" and _finite(t.objective)]
+    done = [t for t in trials if t.state == "complete" and is_finite(t.objective)]
     return setting_importance(done, _searched(spec, done), spec.space if spec is not None else {}, direction)
 
 
 def collect_scatter(trials, names=SCATTER_SETTINGS) -> dict[str, GapPoints]:
     """Overfit gap against each setting in ``names`` for complete trials (values from their params)."""
     out = {}
-    complete = [t for t in trials if t.state == "complete" and _finite(t.gap)]
+    complete = [t for t in trials if t.state == "complete" and is_finite(t.gap)]
     for name in names:
         points = tuple(GapPoint(trial=t.number, x=t.params[name], gap=t.gap, gap_ratio=t.gap_ratio,
-                                objective=t.objective) for t in complete if _finite(t.params.get(name)))
+                                objective=t.objective) for t in complete if is_finite(t.params.get(name)))
         reason = None
         if not complete:
             reason = "no complete trial with an overfit gap yet"

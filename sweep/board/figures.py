@@ -13,7 +13,7 @@ import math
 import plotly.graph_objects as go
 
 from sweep.board.values import BoardData, GapPoints
-from sweep.record import finite_or_none
+from sweep.record import TRIAL_STATES, is_finite
 
 __all__ = ["OKABE_ITO", "PLOT_CONFIG", "STATE_STYLE", "build_figures"]
 
@@ -33,10 +33,6 @@ OBJECTIVE_SCALE = "Cividis"
 MAX_BARS = 300  # the epochs picture draws bars up to this many trials, points beyond
 PLOT_CONFIG = {"displaylogo": False, "displayModeBar": False, "responsive": True}
 FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
-
-
-def _finite(value) -> bool:
-    return finite_or_none(value) is not None
 
 
 def _layout(fig: go.Figure, *, x: str, y: str, height: int = 340) -> go.Figure:
@@ -65,11 +61,11 @@ def _top_edge(values, keep) -> float | None:
     The scale keeps every value in ``keep`` and 85% of ``values``, plus a margin; it is cut only
     when the largest value lies beyond that by more than the range kept.
     """
-    values = [v for v in values if _finite(v)]
+    values = [v for v in values if is_finite(v)]
     if len(values) < 5:
         return None
     low = min(values)
-    top = max([_quantile(values, 0.85)] + [v for v in keep if _finite(v)])
+    top = max([_quantile(values, 0.85)] + [v for v in keep if is_finite(v)])
     top += 0.08 * (top - low)
     return top if max(values) > top + (top - low) else None
 
@@ -77,11 +73,11 @@ def _top_edge(values, keep) -> float | None:
 def _progress(data: BoardData):
     h = data.header
     objective = h.objective
-    points = [p for p in data.progress if _finite(p.objective)]
+    points = [p for p in data.progress if is_finite(p.objective)]
     if not points:
         return None, "Objective by trial: not drawn, no trial has an objective yet."
     baseline = h.best_baseline
-    best = [p for p in data.progress if _finite(p.running_best)]
+    best = [p for p in data.progress if is_finite(p.running_best)]
     top = _top_edge([p.objective for p in points],
                     [baseline.objective if baseline else None] + [p.running_best for p in best[-1:]])
     fig = go.Figure()
@@ -149,7 +145,7 @@ def _curves(data: BoardData):
     _layout(fig, x="epoch", y="loss (training loss function)", height=380)
     cut = ""
     if top is not None:
-        low = min(v for v in values if _finite(v))
+        low = min(v for v in values if is_finite(v))
         fig.update_yaxes(range=[low - 0.04 * (top - low), top])
         cut = " The scale is cut at the top; the first epochs start above it."
     return fig, (f"Validation loss (solid) and training loss (dotted, same colour) per epoch of the "
@@ -163,13 +159,13 @@ def _gap(data: BoardData, name: str, label: str):
     if not points:
         return None, f"Overfit gap against {label}: not drawn, {part.reason}."
     objective = data.header.objective
-    colours = [p.objective for p in points if _finite(p.objective)] or [0.0]
+    colours = [p.objective for p in points if is_finite(p.objective)] or [0.0]
     top = _top_edge([p.gap for p in points], [])
     above = [top is not None and p.gap > top for p in points]
     fig = go.Figure(go.Scatter(
         x=[p.x for p in points], y=[top if up else p.gap for p, up in zip(points, above)], mode="markers",
         name="complete trial", cliponaxis=False,
-        customdata=[[p.trial, p.gap, p.gap_ratio if _finite(p.gap_ratio) else None, p.objective]
+        customdata=[[p.trial, p.gap, p.gap_ratio if is_finite(p.gap_ratio) else None, p.objective]
                     for p in points],
         marker=dict(size=8, color=[p.objective for p in points], colorscale=OBJECTIVE_SCALE, showscale=True,
                     cmin=min(colours), cmax=_quantile(colours, 0.9) if len(colours) >= 5 else max(colours),
@@ -214,7 +210,7 @@ def _epochs(data: BoardData):
         return None, "Epochs per trial: not drawn, the study has no trial yet."
     as_bars = len(e.trials) <= MAX_BARS  # past that, bars get thinner than a pixel: draw points
     fig = go.Figure()
-    for state in ("complete", "pruned", "failed", "running"):
+    for state in TRIAL_STATES:
         chosen = [t for t in e.trials if t.state == state]
         if not chosen:
             continue

@@ -20,7 +20,7 @@ from sweep.board.data import collect_board
 from sweep.board.figures import PLOT_CONFIG, build_figures
 from sweep.board.values import BoardData
 from sweep.errors import BoardError
-from sweep.record import Tracker
+from sweep.record import TRIAL_STATES, Tracker, format_number
 from sweep.study import format_value
 
 __all__ = ["default_board_path", "render_board", "write_board", "write_study_board"]
@@ -35,18 +35,15 @@ SCRIPT = "board.js"
 
 
 def _fmt(value, digits: int = 4) -> str:
-    """A number for the page: 4 significant digits, "–" for missing or non-finite."""
-    if value is None or isinstance(value, bool):
-        return "–" if value is None else str(value).lower()
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return "–"
-        return f"{value:.{digits}g}"
+    """A value for the page: numbers as ``sweep.record.format_number`` writes them ("–" when missing),
+    booleans in lower case, lists and dicts item by item."""
+    if isinstance(value, bool):
+        return str(value).lower()
     if isinstance(value, (list, tuple)):
         return ", ".join(f"[{_fmt(v, digits)}]" if isinstance(v, (list, tuple)) else _fmt(v, digits) for v in value)
     if isinstance(value, dict):
         return "; ".join(f"{k} {_fmt(v, digits)}" for k, v in value.items())
-    return str(value)
+    return format_number(value, digits, missing="–")
 
 
 def _sort_value(value) -> str:
@@ -131,7 +128,7 @@ def render_board(data: BoardData, figures) -> str:
         figures=_figure_html(figures),
         css=Markup((TEMPLATES / STYLESHEET).read_text(encoding="utf-8")),
         js=Markup((TEMPLATES / SCRIPT).read_text(encoding="utf-8")),
-        states=("complete", "pruned", "failed", "running", "baseline"),
+        states=(*TRIAL_STATES, "baseline"),
     )
 
 

@@ -20,7 +20,7 @@ from rich.table import Table
 from rich.text import Text
 
 from sweep.errors import InputError, VolsweepError
-from sweep.record import Tracker
+from sweep.record import Tracker, format_number
 from trainers.price_checks import PriceFileError
 
 __all__ = [
@@ -110,13 +110,8 @@ def clean_json(value):
 
 
 def fmt(value, digits: int = 4) -> str:
-    if value is None:
-        return "-"
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return "-"
-        return f"{value:.{digits}g}"
-    return str(value)
+    """A value in a table cell (``sweep.record.format_number``, "-" when missing)."""
+    return format_number(value, digits)
 
 
 def open_record(db: Path) -> Tracker:

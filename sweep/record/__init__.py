@@ -18,7 +18,7 @@ from sweep.record.tracker import Tracker
 from sweep.record.values import (
     BASELINE_WINDOWS, COMPARISON_WINDOWS, DIRECTIONS, STOP_REASONS, TRIAL_STATES, BaselineRecord,
     ComparisonRecord, ConfirmRecord, DatasetRecord, EpochRow, HoldoutRecord, NoteRecord, StudyRecord,
-    TrialRecord, check_weights, finite_or_none, plain, utc_now,
+    TrialRecord, check_weights, finite_or_none, format_number, is_finite, plain, utc_now,
 )
 
 __all__ = [
@@ -27,6 +27,6 @@ __all__ = [
     "DatasetRecord", "DatasetSummary", "EpochRow", "HoldoutRecord", "NoteRecord", "RankRow", "RecordError",
     "RecordNotFound", "ShowReport", "StudyList", "StudyNotFound", "StudyProvenance", "StudyRecord",
     "StudySummary", "TopReport", "Tracker", "TrialDetail", "TrialNotFound", "TrialRecord", "TrialRow",
-    "baseline_row", "check_weights", "code_version", "collect_provenance", "finite_or_none", "git_commit",
+    "baseline_row", "check_weights", "code_version", "collect_provenance", "finite_or_none", "format_number", "git_commit", "is_finite",
     "list_report", "package_versions", "plain", "rank_rows", "show_report", "top_report", "trial_row", "utc_now",
 ]

@@ -42,6 +42,8 @@ __all__ = [
     "TrialRecord",
     "check_weights",
     "finite_or_none",
+    "format_number",
+    "is_finite",
     "plain",
     "utc_now",
 ]
@@ -69,6 +71,26 @@ def finite_or_none(value: Any) -> float | None:
         return None
     value = float(value)
     return value if math.isfinite(value) else None
+
+
+def is_finite(value: Any) -> bool:
+    """True for a finite number that is not a bool (``finite_or_none(value) is not None``)."""
+    return finite_or_none(value) is not None
+
+
+def format_number(value: Any, digits: int = 4, *, missing: str = "-") -> str:
+    """A value as tables and the board show it: floats to ``digits`` significant digits, ``missing`` for
+    None and non-finite floats, anything else as ``str``.
+
+    Example:
+        >>> format_number(0.123456), format_number(float("nan")), format_number(None, missing="–"), format_number(7)
+        ('0.1235', '-', '–', '7')
+    """
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return missing
+    if isinstance(value, float):
+        return f"{value:.{digits}g}"
+    return str(value)
 
 
 def plain(value: Any) -> Any:
