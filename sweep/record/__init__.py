@@ -1,8 +1,8 @@
 """The record: one SQLite file holding studies, their data, trials and reviews.
 
 `values` holds the record's value objects (frozen dataclasses, no SQL); `rows` turns them into table
-rows; `schema` owns the tables, their upgrades and write transactions; `Tracker` (`tracker`) is the
-one class that reads and writes a record. `ranking` and `reports` are pure summaries of what a
+rows; `schema` owns the tables, their upgrades, write transactions and lookups; `Tracker` (`tracker`) is
+the one class that reads and writes a record, with the review log's SQL in `reviews`. `ranking` and `reports` are pure summaries of what a
 tracker returns; `provenance` says where and with what a study was made.
 """
 

@@ -12,9 +12,10 @@ from __future__ import annotations
 
 import contextlib
 import sqlite3
+from pathlib import Path
 from typing import Iterator
 
-from sweep.errors import RecordError
+from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
 from sweep.record.values import utc_now
 
 __all__ = [
@@ -24,8 +25,12 @@ __all__ = [
     "ENGINE_TABLES",
     "SCHEMA_VERSION",
     "TABLES",
+    "connect_file",
     "database_location",
     "prepare_schema",
+    "require_study",
+    "require_trial",
+    "study_names",
     "write_transaction",
 ]
 
@@ -98,6 +103,26 @@ CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
 """
 
 
+
+
+def connect_file(path: Path, *, create: bool) -> sqlite3.Connection:
+    """A connection to the record file at ``path``: WAL journal, ``synchronous=NORMAL``, 30 s busy timeout.
+
+    Raises:
+        RecordNotFound: ``path`` does not exist and ``create`` is False, or its folder does not exist.
+        RecordError: the file is not an SQLite database.
+    """
+    if not path.exists() and not create:
+        raise RecordNotFound(f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one")
+    if not path.parent.is_dir():
+        raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
+    try:
+        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT)
+        conn.execute("PRAGMA journal_mode=WAL")
+        conn.execute("PRAGMA synchronous=NORMAL")
+    except sqlite3.DatabaseError as exc:
+        raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
+    return conn
 
 
 def database_location(db) -> str:
@@ -212,3 +237,32 @@ def write_transaction(db, location: str) -> Iterator[None]:
         raise
     else:
         conn.execute("COMMIT")
+
+
+def study_names(db) -> list[str]:
+    """The studies of a record, oldest first."""
+    return [r["name"] for r in db.query("SELECT name FROM vs_studies ORDER BY created, name")]
+
+
+def require_study(db, location: str, name: str) -> None:
+    """Raise StudyNotFound, listing the studies there, unless the record holds study ``name``."""
+    if next(db.query("SELECT 1 AS x FROM vs_studies WHERE name = ?", [name]), None) is None:
+        names = study_names(db)
+        listed = ", ".join(names) if names else "none yet"
+        raise StudyNotFound(
+            f"no study named {name!r} in {location}; studies there: {listed} (see `volsweep list {location}`)"
+        )
+
+
+def require_trial(db, location: str, study: str, number: int) -> dict:
+    """The trial's row; StudyNotFound or TrialNotFound (with the numbers held) when it is not there."""
+    require_study(db, location, study)
+    found = next(db.query("SELECT * FROM vs_trials WHERE study = ? AND number = ?", [study, int(number)]), None)
+    if found is None:
+        span = next(db.query("SELECT COUNT(*) AS n, MIN(number) AS lo, MAX(number) AS hi FROM vs_trials "
+                             "WHERE study = ?", [study]))
+        held = f"{span['n']} trials, numbers {span['lo']}-{span['hi']}" if span["n"] else "no trials yet"
+        raise TrialNotFound(
+            f"study {study!r} in {location} has no trial {number} ({held}); see `volsweep list {location}`"
+        )
+    return found

@@ -20,7 +20,6 @@ Example:
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import sqlite3
 import zlib
 from pathlib import Path
@@ -29,13 +28,13 @@ from typing import Iterable
 import numpy as np
 import sqlite_utils
 
-from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
-from sweep.record import rows
+from sweep.errors import RecordError, RecordNotFound, StudyNotFound
+from sweep.record import reviews, rows
 from sweep.record.schema import (
-    BUSY_TIMEOUT, COMPARISONS_SCHEMA, COMPARISONS_TABLE, database_location, prepare_schema, write_transaction,
+    connect_file, database_location, prepare_schema, require_study, require_trial, study_names, write_transaction,
 )
 from sweep.record.values import (
-    BASELINE_WINDOWS, COMPARISON_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
+    BASELINE_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
     DatasetRecord, HoldoutRecord, NoteRecord, StudyRecord, TrialRecord, check_weights, utc_now,
 )
 
@@ -68,19 +67,7 @@ class Tracker:
             RecordNotFound: ``path`` does not exist and ``create`` is False.
             RecordError: the file is not a volsweep record.
         """
-        path = Path(path)
-        if not path.exists() and not create:
-            raise RecordNotFound(
-                f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one"
-            )
-        if not path.parent.is_dir():
-            raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
-        try:
-            conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT)
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=NORMAL")
-        except sqlite3.DatabaseError as exc:
-            raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
+        conn = connect_file(Path(path), create=create)
         try:
             tracker = cls(sqlite_utils.Database(conn), create=create)
         except BaseException:
@@ -368,33 +355,20 @@ class Tracker:
             RecordError: a holdout with that sequence number is already recorded.
         """
         with self._transaction():
-            self._trial_row(record.study, record.trial)
-            last = self._one("SELECT MAX(sequence) AS n FROM vs_holdouts WHERE study = ?", [record.study])["n"] or 0
-            sequence = last + 1 if record.sequence is None else record.sequence
-            if sequence <= last and self._one("SELECT 1 AS x FROM vs_holdouts WHERE study = ? AND sequence = ?",
-                                              [record.study, sequence]):
-                raise RecordError(
-                    f"holdout #{sequence} of study {record.study!r} is already recorded and is never "
-                    "overwritten; leave sequence=None to add the next one"
-                )
-            stored = dataclasses.replace(record, sequence=sequence)
-            self.db["vs_holdouts"].insert(rows.to_row(stored))
-        return stored
+            return reviews.add_holdout(self.db, self.location, record)
 
     def load_holdouts(self, study: str, trial: int | None = None) -> list[HoldoutRecord]:
         """The study's holdout results in sequence order (optionally one trial's)."""
-        return [rows.from_row(HoldoutRecord, r, again=bool(r["again"]))
-                for r in self._review_rows("vs_holdouts", study, trial, "sequence")]
+        return reviews.load_holdouts(self.db, self.location, study, trial)
 
     def record_confirmation(self, record: ConfirmRecord) -> None:
         """Add a confirmation (a trial retrained on fresh seeds); earlier ones are kept."""
         with self._transaction():
-            self._trial_row(record.study, record.trial)
-            self.db["vs_confirmations"].insert(rows.to_row(record))
+            reviews.add_confirmation(self.db, self.location, record)
 
     def load_confirmations(self, study: str, trial: int | None = None) -> list[ConfirmRecord]:
         """The study's confirmations, oldest first (optionally one trial's)."""
-        return [rows.from_row(ConfirmRecord, r) for r in self._review_rows("vs_confirmations", study, trial, "id")]
+        return reviews.load_confirmations(self.db, self.location, study, trial)
 
     def record_comparison(self, record: ComparisonRecord) -> ComparisonRecord:
         """Add a comparison result (never overwritten); returns it with its ``sequence`` filled in.
@@ -404,51 +378,20 @@ class Tracker:
             RecordError: a comparison with that sequence number is already recorded.
         """
         with self._transaction():
-            self._require_study(record.study)
-            self.db.execute(COMPARISONS_SCHEMA)
-            last = self._one(f"SELECT MAX(sequence) AS n FROM {COMPARISONS_TABLE} WHERE study = ?",
-                             [record.study])["n"] or 0
-            sequence = last + 1 if record.sequence is None else record.sequence
-            if self._one(f"SELECT 1 AS x FROM {COMPARISONS_TABLE} WHERE study = ? AND sequence = ?",
-                         [record.study, sequence]):
-                raise RecordError(
-                    f"comparison #{sequence} of study {record.study!r} is already recorded and is never "
-                    "overwritten; leave sequence=None to add the next one"
-                )
-            stored = dataclasses.replace(record, sequence=sequence)
-            self.db[COMPARISONS_TABLE].insert(rows.to_row(stored))
-        return stored
+            return reviews.add_comparison(self.db, self.location, record)
 
     def load_comparisons(self, study: str, window: str | None = None) -> list[ComparisonRecord]:
         """The study's comparison results in sequence order; ``window`` "valid" or "test" keeps one window."""
-        self._require_study(study)
-        if window is not None and window not in COMPARISON_WINDOWS:
-            raise ValueError(f"window must be one of {', '.join(COMPARISON_WINDOWS)} or None; got {window!r}")
-        if COMPARISONS_TABLE not in self.db.table_names():
-            return []
-        sql, params = f"SELECT * FROM {COMPARISONS_TABLE} WHERE study = ?", [study]
-        if window is not None:
-            sql, params = sql + ' AND "window" = ?', params + [window]
-        return [rows.from_row(ComparisonRecord, r) for r in self._all(sql + " ORDER BY sequence", params)]
+        return reviews.load_comparisons(self.db, self.location, study, window)
 
     def add_note(self, note: NoteRecord) -> None:
         """Add a decision note; notes are never overwritten or removed."""
         with self._transaction():
-            if note.trial is None:
-                self._require_study(note.study)
-            else:
-                self._trial_row(note.study, note.trial)
-            self.db["vs_notes"].insert(rows.to_row(note))
+            reviews.add_note(self.db, self.location, note)
 
     def load_notes(self, study: str, trial: int | None = None) -> list[NoteRecord]:
         """The study's notes, oldest first (optionally only those on one trial)."""
-        return [rows.from_row(NoteRecord, r) for r in self._review_rows("vs_notes", study, trial, "id")]
-
-    def _review_rows(self, table: str, study: str, trial: int | None, order: str) -> list[dict]:
-        self._require_study(study)
-        if trial is None:
-            return self._all(f"SELECT * FROM {table} WHERE study = ? ORDER BY {order}", [study])
-        return self._all(f"SELECT * FROM {table} WHERE study = ? AND trial = ? ORDER BY {order}", [study, int(trial)])
+        return reviews.load_notes(self.db, self.location, study, trial)
 
     # ------------------------------------------------------------------ helpers
 
@@ -462,26 +405,10 @@ class Tracker:
         return list(self.db.query(sql, list(params)))
 
     def _study_names(self) -> list[str]:
-        return [r["name"] for r in self._all("SELECT name FROM vs_studies ORDER BY created, name")]
+        return study_names(self.db)
 
     def _require_study(self, name: str) -> None:
-        if self._one("SELECT 1 AS x FROM vs_studies WHERE name = ?", [name]) is None:
-            names = self._study_names()
-            listed = ", ".join(names) if names else "none yet"
-            raise StudyNotFound(
-                f"no study named {name!r} in {self.location}; studies there: {listed} "
-                f"(see `volsweep list {self.location}`)"
-            )
+        require_study(self.db, self.location, name)
 
     def _trial_row(self, study: str, number: int) -> dict:
-        self._require_study(study)
-        found = self._one("SELECT * FROM vs_trials WHERE study = ? AND number = ?", [study, int(number)])
-        if found is None:
-            span = self._one("SELECT COUNT(*) AS n, MIN(number) AS lo, MAX(number) AS hi FROM vs_trials "
-                             "WHERE study = ?", [study])
-            held = f"{span['n']} trials, numbers {span['lo']}-{span['hi']}" if span["n"] else "no trials yet"
-            raise TrialNotFound(
-                f"study {study!r} in {self.location} has no trial {number} ({held}); "
-                f"see `volsweep list {self.location}`"
-            )
-        return found
+        return require_trial(self.db, self.location, study, number)
