@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-from sweep.record import Tracker
+from sweep.record import COMPARISON_WINDOWS, Tracker
 
 __all__ = [
     "BoardReview",
@@ -173,7 +173,7 @@ def collect_comparisons(tracker: Tracker, study: str) -> tuple[tuple[Comparison,
     found = tracker.load_comparisons(study)
     latest = {c.window: c for c in found}  # in sequence order, so the last one per window wins
     shown = []
-    for window in ("valid", "test"):
+    for window in COMPARISON_WINDOWS:
         if window not in latest:
             continue
         c, r = latest[window], latest[window].results

@@ -2,8 +2,9 @@
 
 `values` holds the record's value objects (frozen dataclasses, no SQL); `rows` turns them into table
 rows; `schema` owns the tables, their upgrades, write transactions and lookups; `Tracker` (`tracker`) is
-the one class that reads and writes a record, with the review log's SQL in `reviews`. `ranking` and `reports` are pure summaries of what a
-tracker returns; `provenance` says where and with what a study was made.
+the one class that reads and writes a record, with the review log's SQL in `reviews`. `ranking` and
+`reports` are pure summaries of what a tracker returns; `provenance` says where and with what a study
+was made.
 """
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
@@ -27,6 +28,7 @@ __all__ = [
     "DatasetRecord", "DatasetSummary", "EpochRow", "HoldoutRecord", "NoteRecord", "RankRow", "RecordError",
     "RecordNotFound", "ShowReport", "StudyList", "StudyNotFound", "StudyProvenance", "StudyRecord",
     "StudySummary", "TopReport", "Tracker", "TrialDetail", "TrialNotFound", "TrialRecord", "TrialRow",
-    "baseline_row", "check_weights", "code_version", "collect_provenance", "finite_or_none", "format_number", "git_commit", "is_finite",
-    "list_report", "package_versions", "plain", "rank_rows", "show_report", "top_report", "trial_row", "utc_now",
+    "baseline_row", "check_weights", "code_version", "collect_provenance", "finite_or_none", "format_number",
+    "git_commit", "is_finite", "list_report", "package_versions", "plain", "rank_rows", "show_report",
+    "top_report", "trial_row", "utc_now",
 ]

@@ -393,8 +393,9 @@ class NoteRecord:
 class ComparisonRecord:
     """Forecast comparison tests on one window (Diebold-Mariano, confidence set, SPA); never overwritten.
 
-    ``results`` is the JSON-able summary of ``sweep.review.compare_forecasts`` (``ComparisonReport.results_dict()``); ``sequence``
-    is 1 for the study's first comparison, None lets the tracker number it.
+    ``results`` is the JSON-able summary of ``sweep.review.compare_forecasts``
+    (``ComparisonReport.results_dict()``); ``sequence`` is 1 for the study's first comparison, None lets the
+    tracker number it.
     """
 
     study: str

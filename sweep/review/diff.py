@@ -6,11 +6,10 @@ from dataclasses import dataclass
 
 from sweep.record import DatasetSummary, Tracker
 from sweep.review.context import open_study, ranked_complete
-from sweep.study import WindowSpan, diff_specs
+from sweep.study import WINDOW_NAMES, WindowSpan, diff_specs
 
 __all__ = ["StudyDiff", "StudySide", "diff_studies"]
 
-WINDOWS = ("train", "valid", "test")
 
 
 @dataclass(frozen=True)
@@ -73,7 +72,7 @@ def _study_side(tracker: Tracker, name: str) -> tuple[StudySide, dict]:
         n_complete=len(best),
         dataset=DatasetSummary(sha256=dataset.sha256, source=dataset.source, rows=dataset.n_rows,
                                first_date=dataset.first_date, last_date=dataset.last_date),
-        windows={w: WindowSpan.from_dates(ctx.inputs.dates(w)) for w in WINDOWS},
+        windows={w: WindowSpan.from_dates(ctx.inputs.dates(w)) for w in WINDOW_NAMES},
         code_version=ctx.record.code_version, git_commit=ctx.record.git_commit, packages=ctx.record.packages)
     return side, ctx.spec.to_dict()
 
@@ -90,7 +89,7 @@ def diff_studies(tracker: Tracker, study_a: str, study_b: str) -> StudyDiff:
     spec_lines = [line for line in diff_specs(spec_a, spec_b) if not line.startswith("study.name:")]
     window_lines = [f"{w}: {a.windows[w].first}..{a.windows[w].last} ({a.windows[w].rows} rows)"
                     f" -> {b.windows[w].first}..{b.windows[w].last} ({b.windows[w].rows} rows)"
-                    for w in WINDOWS if a.windows[w] != b.windows[w]]
+                    for w in WINDOW_NAMES if a.windows[w] != b.windows[w]]
     package_lines = [f"{p}: {a.packages.get(p)} -> {b.packages.get(p)}"
                      for p in sorted(set(a.packages) | set(b.packages)) if a.packages.get(p) != b.packages.get(p)]
     same_data = a.dataset.sha256 == b.dataset.sha256

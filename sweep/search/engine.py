@@ -21,7 +21,8 @@ from sweep.search.objective import trial_seed
 from sweep.search.storage import default_storage_path, open_storage
 from sweep.search.workers import FINISHED_STATES, WorkerPlan, count_states, run_inline, run_processes
 from sweep.study import (
-    StudyInputs, StudySpec, compute_baselines, diff_specs, load_study_prices, prepare_folds, spec_from_text,
+    WINDOW_NAMES, StudyInputs, StudySpec, compute_baselines, diff_specs, load_study_prices, prepare_folds,
+    spec_from_text,
 )
 from trainers.data import PriceData, frame_to_csv_text
 
@@ -104,7 +105,7 @@ def _new_study(spec: StudySpec, price_data: PriceData, storage_url: str) -> _New
 
 def _window_settings(folds: list[StudyInputs]) -> dict:
     """Rows per window, as the board's header shows them; with folds, every fold's too."""
-    sizes = [{w: len(getattr(f.windows, w)) for w in ("train", "valid", "test")} for f in folds]
+    sizes = [{w: len(getattr(f.windows, w)) for w in WINDOW_NAMES} for f in folds]
     if len(sizes) == 1:
         return {"windows": sizes[0]}
     return {"windows": {"train": sizes[-1]["train"], "valid": sum(s["valid"] for s in sizes),

@@ -25,8 +25,8 @@ from sweep.search.storage import make_pruner, make_sampler, open_storage, percen
 from sweep.study import StudyInputs, StudySpec, prepare_folds, spec_from_text
 from trainers.data import read_prices_csv_text
 
-__all__ = ["FINISHED_STATES", "POLL_SECONDS", "WorkerPlan", "count_states", "folds_from_record", "inputs_from_record", "run_inline",
-           "run_processes"]
+__all__ = ["FINISHED_STATES", "POLL_SECONDS", "WorkerPlan", "count_states", "folds_from_record",
+           "inputs_from_record", "run_inline", "run_processes"]
 
 POLL_SECONDS = 0.2
 FINISHED_STATES = (TrialState.COMPLETE, TrialState.PRUNED, TrialState.FAIL)

@@ -11,8 +11,9 @@ from sweep.errors import SpecError
 from sweep.study.baselines import BaselineScore, compute_baselines
 from sweep.study.edits import set_keys
 from sweep.study.inputs import (
-    MIN_WINDOW_ROWS, WINDOW_NAMES, StudyInputs, WindowRows, WindowSpan, build_study_dataset, feature_config, load_study_prices, min_rows,
-    prepare_folds, prepare_inputs, split_windows, valid_dates, valid_labels, valid_truth, window_rows,
+    MIN_WINDOW_ROWS, SCORED_WINDOWS, WINDOW_NAMES, StudyInputs, WindowRows, WindowSpan, build_study_dataset,
+    feature_config, load_study_prices, min_rows, prepare_folds, prepare_inputs, split_windows, valid_dates,
+    valid_labels, valid_truth, window_rows,
 )
 from sweep.study.reader import diff_specs, load_spec, parse_spec, spec_from_text
 from sweep.study.scores import FORECAST_FLOOR, fold_mean, mean_dicts, score_forecasts, window_losses
@@ -25,19 +26,18 @@ from sweep.study.spec import (
     SearchSection, SplitSection, StudySection, StudySpec, TargetSection, TrainingSection,
 )
 from sweep.study.summaries import (
-    BaselineRow, BaselinesReport, DataReport, EstimatorStats, baselines_report, data_report,
-    features_frame,
+    BaselineRow, BaselinesReport, DataReport, EstimatorStats, baselines_report, data_report, features_frame,
 )
 
 __all__ = [
     "ACTIVATIONS", "FORECAST_FLOOR", "HAR_MIN_ROWS", "MIN_WINDOW_ROWS", "OBJECTIVES", "PRUNERS", "SAMPLERS",
-    "SECTIONS", "SETTINGS", "WINDOW_NAMES", "BaselineRow", "BaselineScore", "BaselineSection", "BaselinesReport",
-    "DataReport", "EstimatorStats", "WindowSpan", "Choice", "DataSection", "FeatureSection",
+    "SCORED_WINDOWS", "SECTIONS", "SETTINGS", "WINDOW_NAMES", "BaselineRow", "BaselineScore", "BaselineSection",
+    "BaselinesReport", "DataReport", "EstimatorStats", "WindowSpan", "Choice", "DataSection", "FeatureSection",
     "Fixed", "FloatRange", "FrozenMap", "IntRange", "SearchSection", "Setting", "SettingRule", "SpecError",
-    "SplitSection", "StudyInputs", "StudySection", "StudySpec", "TargetSection", "TrainingSection", "WindowRows",
-    "baselines_report", "build_study_dataset", "compute_baselines", "data_report",
-    "diff_specs", "feature_config", "features_frame", "fold_mean", "format_value", "grid_values",
-    "load_spec", "load_study_prices", "mean_dicts", "min_rows", "parse_space", "parse_spec", "prepare_folds",
+    "SplitSection", "StudyInputs", "StudySection", "StudySpec", "TargetSection", "TrainingSection",
+    "WindowRows", "baselines_report", "build_study_dataset", "compute_baselines", "data_report", "diff_specs",
+    "feature_config", "features_frame", "fold_mean", "format_value", "grid_values", "load_spec",
+    "load_study_prices", "mean_dicts", "min_rows", "parse_space", "parse_spec", "prepare_folds",
     "prepare_inputs", "score_forecasts", "set_keys", "spec_from_text", "split_windows", "suggest_params",
     "valid_dates", "valid_labels", "valid_truth", "window_losses", "window_rows",
 ]

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from sweep.errors import SpecError
-from sweep.study.inputs import StudyInputs
+from sweep.study.inputs import SCORED_WINDOWS, StudyInputs
 from sweep.study.scores import fold_mean, mean_dicts, score_forecasts, window_losses
 from sweep.study.spec import StudySpec
 from trainers import metrics
@@ -49,7 +49,7 @@ def compute_baselines(spec: StudySpec, folds) -> list[BaselineScore]:
     last = folds[-1]
     scores = []
     for name, result in fitted[-1].items():
-        for window in ("valid", "test"):
+        for window in SCORED_WINDOWS:
             if window == "valid":
                 parts = [(f.truth["valid"], fit[name].forecasts.to_numpy(dtype=np.float64)[f.windows.valid])
                          for fit, f in zip(fitted, folds)]
@@ -102,7 +102,7 @@ def _class_share_baseline(folds: list[StudyInputs]) -> list[BaselineScore]:
     counts = np.bincount(inputs.labels["train"], minlength=n_classes).astype(np.float64)
     shares = (counts + 1.0) / (counts.sum() + n_classes)  # add-one so no class has probability 0
     scores = []
-    for window in ("valid", "test"):
+    for window in SCORED_WINDOWS:
         blocks = [f.labels["valid"] for f in folds] if window == "valid" else [inputs.labels["test"]]
         losses = mean_dicts([
             {"deviance": float(metrics.deviance(b, np.tile(shares, (len(b), 1)))),

@@ -23,6 +23,7 @@ from trainers.splits import Scaler, Windows, fit_scaler, split_by_dates, split_b
 
 __all__ = [
     "MIN_WINDOW_ROWS",
+    "SCORED_WINDOWS",
     "WINDOW_NAMES",
     "StudyInputs",
     "WindowRows",
@@ -41,6 +42,7 @@ __all__ = [
 ]
 
 WINDOW_NAMES = ("train", "valid", "test")
+SCORED_WINDOWS = WINDOW_NAMES[1:]  # the windows forecasts are scored on (baselines, holdouts)
 # Fewest rows of any window: every window's losses include the Mincer-Zarnowitz R^2 of each horizon
 # (`window_losses`), a regression on a constant and the forecast, which needs 3 rows.
 MIN_WINDOW_ROWS = 3

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from sweep.study.baselines import compute_baselines
-from sweep.study.inputs import WindowSpan, load_study_prices, prepare_inputs
+from sweep.study.inputs import WINDOW_NAMES, WindowSpan, load_study_prices, prepare_inputs
 from sweep.study.spec import StudySpec
 from trainers import volatility
 from trainers.data import load_prices
@@ -200,7 +200,7 @@ def baselines_report(spec: StudySpec) -> BaselinesReport:
     return BaselinesReport(
         study=spec.study.name,
         objective=spec.study.objective,
-        windows={w: WindowSpan.from_dates(inputs.dates(w)) for w in ("train", "valid", "test")},
+        windows={w: WindowSpan.from_dates(inputs.dates(w)) for w in WINDOW_NAMES},
         baselines=tuple(BaselineRow(name=b.name, window=b.window, objective=b.objective, losses=b.losses,
                                     params=b.params) for b in compute_baselines(spec, inputs)),
     )
@@ -215,7 +215,7 @@ def features_frame(spec: StudySpec) -> pd.DataFrame:
     inputs = prepare_inputs(spec, price_data.frame)
     dataset = inputs.dataset
     window = np.full(len(dataset.dates), "embargo", dtype=object)
-    for name in ("train", "valid", "test"):
+    for name in WINDOW_NAMES:
         window[getattr(inputs.windows, name)] = name
     out = pd.concat([dataset.X, dataset.y.add_prefix("target_")], axis=1)
     out.insert(0, "window", window)
