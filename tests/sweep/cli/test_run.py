@@ -1,4 +1,4 @@
-"""`volsweep run` and `volsweep demo` through typer's test runner (the reading commands: test_cli_reading.py)."""
+"""`volsweep run` and `volsweep demo` through typer's test runner (the reading commands: test_reading.py)."""
 
 from __future__ import annotations
 
