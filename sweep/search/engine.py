@@ -29,19 +29,20 @@ from trainers.data import PriceData, frame_to_csv_text
 __all__ = ["RunSummary", "default_record_path", "run_study"]
 
 
-@dataclass
+@dataclass(frozen=True)
 class RunSummary:
-    """What a run did, for the CLI to print."""
+    """What a run did, for the CLI to print: finished trials by state (``counts``), the best objective, and
+    the trials recovered from stopped workers."""
 
     study: str
     record_path: Path
     storage: str
     n_target: int
-    counts: dict = field(default_factory=dict)
+    counts: dict[str, int] = field(default_factory=dict)
     best: float | None = None
     interrupted: bool = False
     resumed: bool = False
-    recovered: list = field(default_factory=list)
+    recovered: tuple[int, ...] = ()
     seconds: float = 0.0
 
 
@@ -244,10 +245,9 @@ def run_study(
         direction="minimize",
         load_if_exists=True,
     )
-    summary = RunSummary(spec.study.name, record_path, storage_url, n_target, resumed=old is not None)
-    summary.recovered = _recover_orphans(
-        study, storage_object, tracker, spec, "the worker running this trial stopped before it finished"
-    )
+    reason = "the worker running this trial stopped before it finished"
+    recovered = _recover_orphans(study, storage_object, tracker, spec, reason)
+    interrupted = False
     remaining = max(0, n_target - _n_finished(study))
     if remaining:
         plan = WorkerPlan(str(record_path), storage_url, spec.study.name, 0)
@@ -257,14 +257,11 @@ def run_study(
             else:
                 run_processes(plan, remaining, n_workers, study, on_event)
         except KeyboardInterrupt:
-            summary.interrupted = True
-        summary.recovered += _recover_orphans(
-            study, storage_object, tracker, spec, "the worker running this trial stopped before it finished"
-        )
-    summary.counts = count_states(study)
+            interrupted = True
+        recovered += _recover_orphans(study, storage_object, tracker, spec, reason)
     completed = study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
-    summary.best = min((t.value for t in completed), default=None)
-    summary.seconds = time.perf_counter() - t0
-    return summary
+    return RunSummary(spec.study.name, record_path, storage_url, n_target, counts=count_states(study),
+                      best=min((t.value for t in completed), default=None), interrupted=interrupted,
+                      resumed=old is not None, recovered=tuple(recovered), seconds=time.perf_counter() - t0)
 
 

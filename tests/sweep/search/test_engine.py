@@ -192,7 +192,7 @@ def test_run_study_recovers_a_trial_left_by_a_stopped_worker(market):
     left = study.ask()
     batch_size = left.suggest_categorical("batch_size", [32, 64, 128])
     summary = run_study(spec, record_path=record, storage=storage, n_trials=2)
-    assert summary.recovered == [left.number]
+    assert list(summary.recovered) == [left.number]
     trials = {t.number: t for t in Tracker.open(record).load_trials("orphan")}
     assert trials[left.number].state == "failed"
     assert "stopped before it finished" in trials[left.number].error
