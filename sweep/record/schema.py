@@ -22,6 +22,7 @@ __all__ = [
     "BUSY_TIMEOUT",
     "COMPARISONS_SCHEMA",
     "COMPARISONS_TABLE",
+    "ENGINE_LOG_TABLE",
     "ENGINE_TABLES",
     "SCHEMA_VERSION",
     "TABLES",
@@ -34,7 +35,7 @@ __all__ = [
     "write_transaction",
 ]
 
-SCHEMA_VERSION = 2  # 2: epochs carry their walk-forward fold
+SCHEMA_VERSION = 3  # 2: epochs carry their walk-forward fold; 3: the engine's log lives in the record
 BUSY_TIMEOUT = 30.0
 _TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
 _TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
@@ -42,6 +43,8 @@ _STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
 _EPOCHS_TABLE = f"""CREATE TABLE IF NOT EXISTS vs_epochs (
     {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
     valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});"""
+ENGINE_LOG_TABLE = "vs_engine_log"
+_ENGINE_LOG = f"""CREATE TABLE IF NOT EXISTS {ENGINE_LOG_TABLE} (number INTEGER PRIMARY KEY, entry TEXT NOT NULL);"""
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS vs_meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS vs_datasets (
@@ -83,7 +86,8 @@ CREATE TABLE IF NOT EXISTS vs_notes (
     id INTEGER PRIMARY KEY AUTOINCREMENT, {_STUDY_FK}, trial INTEGER, created TEXT NOT NULL,
     text TEXT NOT NULL, author TEXT,
     FOREIGN KEY (study, trial) REFERENCES vs_trials (study, number));
-""".replace("{epochs_table}", _EPOCHS_TABLE)
+{{engine_log}}
+""".replace("{epochs_table}", _EPOCHS_TABLE).replace("{engine_log}", _ENGINE_LOG)
 # optuna's RDBStorage tables (optuna 4-5), which may share a record's file (`--storage sqlite:///record.sqlite`)
 ENGINE_TABLES = frozenset({
     "alembic_version", "studies", "study_directions", "study_system_attributes", "study_user_attributes",
@@ -91,7 +95,7 @@ ENGINE_TABLES = frozenset({
     "trial_user_attributes", "trial_values", "trials", "version_info",
 })
 TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
-          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes")
+          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes", ENGINE_LOG_TABLE)
 
 
 COMPARISONS_TABLE = "vs_comparisons"
@@ -105,8 +109,10 @@ CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
 
 
 
-def connect_file(path: Path, *, create: bool) -> sqlite3.Connection:
+def connect_file(path: Path, *, create: bool, shared: bool = False) -> sqlite3.Connection:
     """A connection to the record file at ``path``: WAL journal, ``synchronous=NORMAL``, 30 s busy timeout.
+
+    ``shared`` lets other threads use the connection (the caller serialises its use with a lock).
 
     Raises:
         RecordNotFound: ``path`` does not exist and ``create`` is False, or its folder does not exist.
@@ -117,7 +123,7 @@ def connect_file(path: Path, *, create: bool) -> sqlite3.Connection:
     if not path.parent.is_dir():
         raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
     try:
-        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT)
+        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT, check_same_thread=not shared)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA synchronous=NORMAL")
     except sqlite3.DatabaseError as exc:
@@ -185,7 +191,8 @@ def _check_schema(db, location: str, tables: set[str]) -> None:
             f"{location} was written by a newer volsweep (record schema {version}; this version "
             f"reads up to {SCHEMA_VERSION}); upgrade volsweep to open it"
         )
-    missing = [t for t in TABLES if t not in tables]
+    expected = TABLES if version >= 3 else [t for t in TABLES if t != ENGINE_LOG_TABLE]  # made by the upgrade
+    missing = [t for t in expected if t not in tables]
     if missing:
         raise RecordError(
             f"{location} is not a volsweep record: tables missing: {', '.join(missing)}; "
@@ -207,6 +214,8 @@ def _upgrade(db, location: str, version: int) -> None:
                 "FROM vs_epochs_v1"
             )
             db.execute("DROP TABLE vs_epochs_v1")
+        if version < 3:  # the engine's log moves into the record (an old journal file is copied in on resume)
+            db.execute(_ENGINE_LOG)
         db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
 
 

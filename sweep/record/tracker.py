@@ -29,7 +29,7 @@ import numpy as np
 import sqlite_utils
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound
-from sweep.record import reviews, rows
+from sweep.record import enginelog, reviews, rows
 from sweep.record.schema import (
     connect_file, database_location, prepare_schema, require_study, require_trial, study_names, write_transaction,
 )
@@ -60,14 +60,15 @@ class Tracker:
 
 
     @classmethod
-    def open(cls, path: str | Path, *, create: bool = True) -> Tracker:
-        """Open (or create) the record file at ``path``: WAL journal, 30 s busy timeout.
+    def open(cls, path: str | Path, *, create: bool = True, shared: bool = False) -> Tracker:
+        """Open (or create) the record file at ``path``: WAL journal, 30 s busy timeout. ``shared`` lets other
+        threads use this tracker; the caller serialises their calls.
 
         Raises:
             RecordNotFound: ``path`` does not exist and ``create`` is False.
             RecordError: the file is not a volsweep record.
         """
-        conn = connect_file(Path(path), create=create)
+        conn = connect_file(Path(path), create=create, shared=shared)
         try:
             tracker = cls(sqlite_utils.Database(conn), create=create)
         except BaseException:
@@ -392,6 +393,17 @@ class Tracker:
     def load_notes(self, study: str, trial: int | None = None) -> list[NoteRecord]:
         """The study's notes, oldest first (optionally only those on one trial)."""
         return reviews.load_notes(self.db, self.location, study, trial)
+
+    # ------------------------------------------------------------------ the engine's log
+
+    def append_engine_log(self, entries: list[str]) -> None:
+        """Append optuna's journal entries (JSON text) to the record's engine log, in one transaction."""
+        with self._transaction():
+            enginelog.append_entries(self.db, entries)
+
+    def read_engine_log(self, start: int = 0) -> list[str]:
+        """The engine log's entries from number ``start`` on (0: all), in the order they were written."""
+        return enginelog.read_entries(self.db, start)
 
     # ------------------------------------------------------------------ helpers
 

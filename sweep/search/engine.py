@@ -15,10 +15,10 @@ from typing import Callable
 import optuna
 from optuna.trial import TrialState
 
-from sweep.errors import RecordNotFound, StudyChanged, StudyNotFound
+from sweep.errors import RecordError, RecordNotFound, StudyChanged, StudyNotFound
 from sweep.record import BaselineRecord, DatasetRecord, StudyRecord, Tracker, TrialRecord, collect_provenance
 from sweep.search.objective import trial_seed
-from sweep.search.storage import default_storage_path, open_storage
+from sweep.search.storage import RECORD_STORAGE, close_storage, default_storage_path, open_storage
 from sweep.search.workers import FINISHED_STATES, WorkerPlan, count_states, run_inline, run_processes
 from sweep.study import (
     WINDOW_NAMES, StudyInputs, StudySpec, compute_baselines, diff_specs, load_study_prices, prepare_folds,
@@ -169,6 +169,35 @@ def _recover_orphans(study: optuna.Study, storage, tracker: Tracker, spec: Study
     return numbers
 
 
+def _adopt_journal_file(storage, old: StudyRecord, record_path: Path, tracker: Tracker) -> None:
+    """Copy a release-0.1 study's engine state from its journal file into the record, once.
+
+    Release 0.1 kept optuna's journal in a file beside the record (`x.optuna.log`). Only that file, beside
+    the record, is read: a path recorded elsewhere may be another copy's journal that has moved on. Its
+    study is copied whole (`optuna.copy_study`: the same trials in the same order, states and values).
+
+    Raises:
+        RecordError: the record holds trials of the study but neither the record nor the journal file beside
+            it holds the engine's state of them (resuming would start the study again and overwrite them).
+    """
+    name = old.name
+    if name in optuna.get_all_study_names(storage):
+        return
+    beside = default_storage_path(record_path)
+    if beside.is_file():
+        journal = open_storage(str(beside))
+        if name in optuna.get_all_study_names(journal):
+            optuna.copy_study(from_study_name=name, from_storage=journal, to_storage=storage)
+            return
+    if tracker.load_trials(name):
+        recorded = f" (the record names {old.storage})" if old.storage and Path(old.storage) != beside else ""
+        raise RecordError(
+            f"the engine's state of study {name!r} is not in {record_path}, and the journal file that held it, "
+            f"{beside}, is not there{recorded}; put that file back beside the record and run again, or run the "
+            "study file as a new study with --name NEW_NAME (the recorded trials are kept either way)"
+        )
+
+
 def _find_study(tracker: Tracker | None, name: str) -> StudyRecord | None:
     if tracker is None:
         return None
@@ -200,7 +229,9 @@ def run_study(
     Args:
         spec: the parsed study file.
         record_path: the SQLite record (created if missing).
-        storage: optuna storage URL or journal path; default a journal beside the record.
+        storage: optuna storage URL or journal file; default the record itself (`RECORD_STORAGE`). A study
+            of release 0.1 kept its state in a journal file beside the record; it is copied into the
+            record on its first resume (the file is left as it was).
         n_trials: total trials the study should reach (default the spec's).
         n_workers: worker processes (default the spec's); 1 runs in this process.
         on_event: called with each TrialOutcome (or a crash tuple) and the current counts.
@@ -214,7 +245,7 @@ def run_study(
     """
     t0 = time.perf_counter()
     record_path = Path(record_path)
-    storage_url = storage or str(default_storage_path(record_path))
+    storage_url = storage or RECORD_STORAGE
     n_target = int(n_trials if n_trials is not None else spec.study.trials)
     n_workers = int(n_workers if n_workers is not None else spec.study.workers)
     if not record_path.parent.is_dir():
@@ -224,27 +255,40 @@ def run_study(
 
     # Everything that can fail on the study's settings or data runs before the record is written.
     tracker = Tracker.open(record_path) if record_path.exists() else None
-    old = _find_study(tracker, spec.study.name)
-    new = None
-    if old is not None:
-        _check_unchanged(old, spec, price_data.sha256)
-        storage_url = storage or old.storage or storage_url
-    else:
-        new = _new_study(spec, price_data, storage_url)
-    optuna.logging.set_verbosity(optuna.logging.WARNING)
-    storage_object = open_storage(storage_url)
-    if tracker is None:
-        tracker = Tracker.open(record_path)
-    if new is not None:
-        tracker.save_study(new.study, new.dataset)
-        tracker.record_baselines(new.baselines)
+    storage_object = None
+    try:
+        old = _find_study(tracker, spec.study.name)
+        new = None
+        if old is not None:
+            _check_unchanged(old, spec, price_data.sha256)
+            storage_url = storage or (old.storage if old.storage and "://" in old.storage else RECORD_STORAGE)
+        else:
+            new = _new_study(spec, price_data, storage_url)
+        optuna.logging.set_verbosity(optuna.logging.WARNING)
+        if storage_url != RECORD_STORAGE:
+            storage_object = open_storage(storage_url)  # a URL or file that cannot be opened fails here
+        if tracker is None:
+            tracker = Tracker.open(record_path)
+        if new is not None:
+            tracker.save_study(new.study, new.dataset)
+            tracker.record_baselines(new.baselines)
+        if storage_url == RECORD_STORAGE:
+            storage_object = open_storage(RECORD_STORAGE, record_path=record_path)
+            if old is not None:
+                _adopt_journal_file(storage_object, old, record_path, tracker)
+        return _run(spec, tracker, storage_object, storage_url, record_path, n_target, n_workers, on_event,
+                    resumed=old is not None, t0=t0)
+    finally:
+        close_storage(storage_object)
+        if tracker is not None:
+            tracker.close()  # folds the WAL back into the file: the .sqlite alone is the whole record
 
-    study = optuna.create_study(
-        study_name=spec.study.name,
-        storage=storage_object,
-        direction="minimize",
-        load_if_exists=True,
-    )
+
+def _run(spec: StudySpec, tracker: Tracker, storage_object, storage_url: str, record_path: Path, n_target: int,
+         n_workers: int, on_event, *, resumed: bool, t0: float) -> RunSummary:
+    """Run the study's remaining trials and sum up (the record and the engine's storage are open)."""
+    study = optuna.create_study(study_name=spec.study.name, storage=storage_object, direction="minimize",
+                                load_if_exists=True)
     reason = "the worker running this trial stopped before it finished"
     recovered = _recover_orphans(study, storage_object, tracker, spec, reason)
     interrupted = False
@@ -262,6 +306,6 @@ def run_study(
     completed = study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
     return RunSummary(spec.study.name, record_path, storage_url, n_target, counts=count_states(study),
                       best=min((t.value for t in completed), default=None), interrupted=interrupted,
-                      resumed=old is not None, recovered=tuple(recovered), seconds=time.perf_counter() - t0)
+                      resumed=resumed, recovered=tuple(recovered), seconds=time.perf_counter() - t0)
 
 

@@ -1,36 +1,102 @@
-"""optuna plumbing of a study: the storage behind a URL or journal path, and the sampler and pruner
-the study file names."""
+"""optuna plumbing of a study: the engine's storage, and the sampler and pruner the study file names.
+
+By default the engine's state is optuna's journal kept as a table of the record itself (`RecordJournal`,
+through optuna's public `BaseJournalBackend`), so a study resumes from its record alone. A database URL
+(`sqlite:///...`, `postgresql://...`) uses optuna's RDB storage instead, and a file path a journal file.
+"""
 
 from __future__ import annotations
 
 import json
+import threading
 from pathlib import Path
 
 import optuna
 from optuna.storages import JournalStorage
-from optuna.storages.journal import JournalFileBackend, JournalFileOpenLock
+from optuna.storages.journal import BaseJournalBackend, JournalFileBackend, JournalFileOpenLock
 
 from sweep.errors import InputError
+from sweep.record import Tracker
 from sweep.search.pruning import PercentileRule
 from sweep.study import StudySpec, grid_values
 
-__all__ = ["default_storage_path", "make_pruner", "make_sampler", "open_storage", "percentile_rule"]
+__all__ = ["RECORD_STORAGE", "RecordJournal", "RecordStorage", "close_storage", "default_storage_path", "make_pruner",
+           "make_sampler", "open_storage", "percentile_rule"]
+
+RECORD_STORAGE = "record"  # the engine's state kept in the record itself (the default)
 
 
 def default_storage_path(record_path: Path) -> Path:
-    """The optuna journal beside the record: `studies/x.sqlite` -> `studies/x.optuna.log`."""
+    """Where release 0.1 kept optuna's journal, beside the record: `studies/x.sqlite` -> `studies/x.optuna.log`."""
     return record_path.with_suffix(".optuna.log")
 
 
-def open_storage(url: str):
-    """An optuna storage from a URL (`sqlite:///...`, `postgresql://...`) or a journal file path.
+class RecordJournal(BaseJournalBackend):
+    """optuna's journal kept in the record's engine log (`Tracker.append_engine_log`).
 
-    SQLite gets a 30 s busy timeout so several workers never see `database is locked`.
+    Process-safe as optuna asks: each append is one write transaction of the record, and entries are
+    numbered in commit order. One connection serves every thread of a process, one call at a time.
+    """
+
+    def __init__(self, record_path: str | Path):
+        self.record_path = Path(record_path)
+        self._lock = threading.Lock()
+        self._tracker: Tracker | None = None
+
+    def _open(self) -> Tracker:
+        if self._tracker is None:
+            self._tracker = Tracker.open(self.record_path, create=False, shared=True)
+        return self._tracker
+
+    def read_logs(self, log_number_from: int) -> list[dict]:
+        with self._lock:
+            entries = self._open().read_engine_log(log_number_from)
+        return [json.loads(entry) for entry in entries]
+
+    def append_logs(self, logs: list[dict]) -> None:
+        entries = [json.dumps(log, separators=(",", ":")) for log in logs]
+        with self._lock:
+            self._open().append_engine_log(entries)
+
+    def close(self) -> None:
+        """Close the connection (folding the record's WAL back into the file when it is the last one)."""
+        with self._lock:
+            if self._tracker is not None:
+                self._tracker.close()
+                self._tracker = None
+
+
+class RecordStorage(JournalStorage):
+    """optuna's journal storage on a record's engine log; `close()` closes its connection."""
+
+    def __init__(self, record_path: str | Path):
+        self.journal = RecordJournal(record_path)
+        super().__init__(self.journal)
+
+    def close(self) -> None:
+        self.journal.close()
+
+
+def close_storage(storage) -> None:
+    """Close what a storage from `open_storage` holds open (the record's connection of a `RecordStorage`)."""
+    if isinstance(storage, RecordStorage):
+        storage.close()
+
+
+def open_storage(url: str, *, record_path: str | Path | None = None):
+    """An optuna storage: `RECORD_STORAGE` (the record at `record_path`), a URL (`sqlite:///...`,
+    `postgresql://...`) or a journal file path.
+
+    SQLite URLs get a 30 s busy timeout so several workers never see `database is locked`.
 
     Raises:
         InputError: a URL that cannot be parsed or reached, a database without its driver, or a
             journal path that is a folder or lies in a folder that does not exist.
     """
+    if url == RECORD_STORAGE:
+        if record_path is None:
+            raise ValueError("open_storage(RECORD_STORAGE) needs record_path, the record file that holds the log")
+        return RecordStorage(record_path)
     if "://" in url:
         import sqlalchemy.exc  # optuna's own dependency, behind its RDBStorage
 
@@ -41,11 +107,11 @@ def open_storage(url: str):
             return optuna.storages.RDBStorage(url, **kwargs)
         except ImportError as exc:  # optuna: no driver installed for this kind of database
             raise InputError(f"optuna storage {url}: {str(exc).rstrip('.')}; install the database's driver, or "
-                             "leave --storage out to use a journal file beside the record") from exc
+                             "leave --storage out to keep the engine's state in the record") from exc
         except (sqlalchemy.exc.ArgumentError, sqlalchemy.exc.OperationalError) as exc:  # bad URL, or unreachable
             reason = str(exc).splitlines()[0]
             raise InputError(f"optuna storage {url} cannot be opened: {reason}; check the URL, or leave "
-                             "--storage out to use a journal file beside the record") from exc
+                             "--storage out to keep the engine's state in the record") from exc
     folder = Path(url).parent
     if Path(url).is_dir() or not folder.is_dir():
         what = "is a folder" if Path(url).is_dir() else f"folder {folder} does not exist"

@@ -21,7 +21,7 @@ from threadpoolctl import threadpool_limits
 from sweep.record import StudyRecord, Tracker
 from sweep.search.objective import run_trial
 from sweep.search.pruning import PruningView
-from sweep.search.storage import make_pruner, make_sampler, open_storage, percentile_rule
+from sweep.search.storage import close_storage, make_pruner, make_sampler, open_storage, percentile_rule
 from sweep.study import StudyInputs, StudySpec, prepare_folds, spec_from_text
 from trainers.data import read_prices_csv_text
 
@@ -69,20 +69,22 @@ def _limit_threads():
 
 def _worker_loop(plan: WorkerPlan, claim: Callable[[], bool], stop, report) -> None:
     tracker = Tracker.open(plan.record_path, create=False)
-    study_record = tracker.find_study(plan.study_name)
-    spec, folds = folds_from_record(tracker, study_record)
-    optuna.logging.set_verbosity(optuna.logging.WARNING)
-    study = optuna.load_study(
-        study_name=plan.study_name,
-        storage=open_storage(plan.storage_url),
-        sampler=make_sampler(spec, plan.worker),
-    )
-    view = PruningView(make_pruner(spec), rule=percentile_rule(spec), epochs_per_fold=spec.training.max_epochs)
-    while not stop.is_set() and claim():
-        outcome = run_trial(study, spec, folds, tracker, view, stop=stop)
-        report(outcome)
-        if outcome.state == "interrupted":
-            raise KeyboardInterrupt
+    storage = open_storage(plan.storage_url, record_path=plan.record_path)
+    try:
+        study_record = tracker.find_study(plan.study_name)
+        spec, folds = folds_from_record(tracker, study_record)
+        optuna.logging.set_verbosity(optuna.logging.WARNING)
+        study = optuna.load_study(study_name=plan.study_name, storage=storage,
+                                  sampler=make_sampler(spec, plan.worker))
+        view = PruningView(make_pruner(spec), rule=percentile_rule(spec), epochs_per_fold=spec.training.max_epochs)
+        while not stop.is_set() and claim():
+            outcome = run_trial(study, spec, folds, tracker, view, stop=stop)
+            report(outcome)
+            if outcome.state == "interrupted":
+                raise KeyboardInterrupt
+    finally:
+        close_storage(storage)
+        tracker.close()
 
 
 def _claim_slot(slots) -> bool:

@@ -56,7 +56,8 @@ def one_worker_study(market):
 
 
 def _optuna_study(summary):
-    return optuna.load_study(study_name=summary.study, storage=open_storage(summary.storage))
+    storage = open_storage(summary.storage, record_path=summary.record_path)
+    return optuna.load_study(study_name=summary.study, storage=storage)
 
 
 def test_run_study_one_worker_records_every_trial_in_full(one_worker_study, market):
