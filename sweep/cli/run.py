@@ -30,7 +30,7 @@ def run(
     trials: Annotated[Optional[int], typer.Option(min=1, help="Total trials the study should reach.")] = None,
     workers: Annotated[Optional[int], typer.Option(min=1, help="Worker processes (one BLAS thread each).")] = None,
     db: Annotated[Optional[Path], typer.Option(help="The record (default: beside the study file).")] = None,
-    storage: Annotated[Optional[str], typer.Option(help="optuna storage URL or journal file (default: beside the record).")] = None,
+    storage: Annotated[Optional[str], typer.Option(help="optuna storage URL or journal file (default: the record itself).")] = None,
     name: Annotated[Optional[str], typer.Option(help="Run the file as a new study under this name.")] = None,
     board: Annotated[bool, typer.Option(help="Write the HTML board at the end.")] = True,
 ) -> None:
