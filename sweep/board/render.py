@@ -136,10 +136,16 @@ def write_board(data: BoardData, figures, path: str | Path) -> Path:
     """Render the board and write it to ``path`` (UTF-8); returns the path.
 
     Raises:
-        BoardError: the folder of ``path`` does not exist, or ``path`` is a folder.
+        BoardError: the folder of ``path`` does not exist, ``path`` is a folder, or the file cannot be written.
     """
     path = _checked_out(path)
-    path.write_text(render_board(data, figures), encoding="utf-8")
+    html = render_board(data, figures)
+    try:
+        path.write_text(html, encoding="utf-8")
+    except OSError as exc:  # a full disk, a read-only folder
+        path.unlink(missing_ok=True)  # no half-written board is left behind
+        raise BoardError(f"cannot write the board to {path}: {exc.strerror or exc}; free some space or choose "
+                         "another -o FILE") from exc
     return path
 
 

@@ -27,6 +27,7 @@ __all__ = [
     "SCHEMA_VERSION",
     "TABLES",
     "connect_file",
+    "named_problem",
     "database_location",
     "prepare_schema",
     "require_study",
@@ -122,13 +123,41 @@ def connect_file(path: Path, *, create: bool, shared: bool = False) -> sqlite3.C
         raise RecordNotFound(f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one")
     if not path.parent.is_dir():
         raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
+    conn = None
     try:
         conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT, check_same_thread=not shared)
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute("PRAGMA synchronous=NORMAL")
     except sqlite3.DatabaseError as exc:
-        raise RecordError(f"{path} is not a volsweep record: {exc}") from exc
+        if conn is not None:
+            conn.close()
+        raise (named_problem(str(path), exc) or RecordError(f"{path} is not a volsweep record: {exc}")) from exc
     return conn
+
+
+def named_problem(location: str, exc: sqlite3.DatabaseError) -> RecordError | None:
+    """The named error for an SQLite error a user can act on, or None for one that is a bug.
+
+    A damaged file, a full disk, a file or folder that cannot be written, and a lock held too long are
+    problems of the file or the machine: each gets one line naming the file and what to do.
+    """
+    text = str(exc)
+    if type(exc) is sqlite3.DatabaseError and "not a database" in text:
+        return RecordError(f"{location} is not a volsweep record: {text}; give the .sqlite file that "
+                           "`volsweep run` wrote")
+    if type(exc) is sqlite3.DatabaseError:  # "database disk image is malformed"
+        return RecordError(f"{location} is damaged ({text}); check it with `sqlite3 {location} 'PRAGMA "
+                           "integrity_check'` and restore a backup copy of the file")
+    if "disk is full" in text or "disk I/O error" in text:
+        return RecordError(f"cannot write {location}: {text}; the record is as it was before this write: free "
+                           "some space and run the same command again")
+    if "readonly" in text or "unable to open database file" in text:
+        return RecordError(f"cannot write {location}: {text}; the file or its folder is read-only: copy the "
+                           "record to a folder you can write, or run there")
+    if "database is locked" in text:
+        return RecordError(f"{location} is busy: another process held it for {BUSY_TIMEOUT:.0f} s; run again "
+                           "when it is done")
+    return None
 
 
 def database_location(db) -> str:
@@ -153,7 +182,7 @@ def prepare_schema(db, location: str, *, create: bool) -> None:
         db.execute("PRAGMA foreign_keys=ON")
         tables = set(db.table_names())
     except sqlite3.DatabaseError as exc:
-        raise RecordError(f"{location} is not a volsweep record: {exc}") from exc
+        raise (named_problem(location, exc) or RecordError(f"{location} is not a volsweep record: {exc}")) from exc
     others = sorted(t for t in tables - ENGINE_TABLES if not t.startswith("sqlite_"))
     if "vs_meta" in tables:
         _check_schema(db, location, tables)

@@ -20,6 +20,7 @@ Example:
 from __future__ import annotations
 
 import contextlib
+import functools
 import sqlite3
 import zlib
 from pathlib import Path
@@ -31,7 +32,8 @@ import sqlite_utils
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound
 from sweep.record import enginelog, reviews, rows
 from sweep.record.schema import (
-    connect_file, database_location, prepare_schema, require_study, require_trial, study_names, write_transaction,
+    connect_file, database_location, named_problem, prepare_schema, require_study, require_trial, study_names,
+    write_transaction,
 )
 from sweep.record.values import (
     BASELINE_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
@@ -41,6 +43,29 @@ from sweep.record.values import (
 __all__ = ["Tracker"]
 
 
+def _named_sqlite_problems(cls):
+    """Every public method of ``cls`` turns SQLite errors a user can act on into one named RecordError."""
+
+    def guarded(method):
+        @functools.wraps(method)
+        def wrapper(self, *args, **kwargs):
+            try:
+                return method(self, *args, **kwargs)
+            except sqlite3.DatabaseError as exc:
+                problem = named_problem(self.location, exc)
+                if problem is None:
+                    raise
+                raise problem from exc
+
+        return wrapper
+
+    for name, value in list(vars(cls).items()):
+        if not name.startswith("_") and callable(value):
+            setattr(cls, name, guarded(value))
+    return cls
+
+
+@_named_sqlite_problems
 class Tracker:
     """Reads and writes the record in one SQLite database.
 
