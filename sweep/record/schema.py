@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import contextlib
 import sqlite3
+import time
 from pathlib import Path
 from typing import Iterator
 
@@ -38,6 +39,7 @@ __all__ = [
 
 SCHEMA_VERSION = 3  # 2: epochs carry their walk-forward fold; 3: the engine's log lives in the record
 BUSY_TIMEOUT = 30.0
+POLL_SECONDS = 0.0005  # how often a writer tries again for the write lock
 _TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
 _TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
 _STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
@@ -248,6 +250,33 @@ def _upgrade(db, location: str, version: int) -> None:
         db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
 
 
+def _begin_immediate(conn: sqlite3.Connection, location: str) -> None:
+    """Take the write lock, polling every half millisecond while another process holds it.
+
+    SQLite's own busy handler sleeps 1, 2, 5, 10 ... 100 ms between tries; several worker processes
+    each writing a dozen short transactions per trial would lose most of their time in those sleeps.
+    """
+    timeout_ms = conn.execute("PRAGMA busy_timeout").fetchone()[0]  # the connection's own (30 s for a record)
+    deadline = time.monotonic() + timeout_ms / 1000
+    conn.execute("PRAGMA busy_timeout = 0")
+    try:
+        while True:
+            try:
+                conn.execute("BEGIN IMMEDIATE")
+                return
+            except sqlite3.OperationalError as exc:
+                if "locked" not in str(exc) and "busy" not in str(exc):
+                    raise
+                if time.monotonic() > deadline:
+                    raise RecordError(
+                        f"{location} is busy: {exc} (another process held the write lock for "
+                        f"{timeout_ms / 1000:g} s); retry when the other writer finishes"
+                    ) from exc
+                time.sleep(POLL_SECONDS)
+    finally:
+        conn.execute(f"PRAGMA busy_timeout = {timeout_ms}")
+
+
 @contextlib.contextmanager
 def write_transaction(db, location: str) -> Iterator[None]:
     """One write transaction that takes the write lock first (``BEGIN IMMEDIATE``); nested calls join it.
@@ -260,13 +289,7 @@ def write_transaction(db, location: str) -> Iterator[None]:
         with db.atomic():
             yield
         return
-    try:
-        conn.execute("BEGIN IMMEDIATE")
-    except sqlite3.OperationalError as exc:
-        raise RecordError(
-            f"{location} is busy: {exc} (another process held the write lock for "
-            f"{BUSY_TIMEOUT:.0f} s); retry when the other writer finishes"
-        ) from exc
+    _begin_immediate(conn, location)
     try:
         yield
     except BaseException:
