@@ -12,7 +12,7 @@ from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
 
 from sweep.board import default_board_path, write_study_board
-from sweep.cli.app import CAUTION, app, handles_errors, out, ranking_table
+from sweep.cli.app import CAUTION, app, err, handles_errors, out, ranking_table
 from sweep.record import Tracker, top_report
 from sweep.search import RunSummary, TrialOutcome, default_record_path, run_study
 from sweep.study import load_spec
@@ -37,8 +37,7 @@ def run(
     """Create or resume a study and run its trials."""
     summary = run_with_progress(study_file, trials=trials, workers=workers, db=db, storage=storage,
                                 name=name, write_board=board, console=out)
-    if summary.interrupted:
-        raise typer.Exit(code=130)
+    _exit_code(summary)
 
 
 @app.command()
@@ -51,7 +50,17 @@ def demo(
     """Write the invented demo market and its study file, then run it end to end."""
     study_file = write_demo(dir)
     out.print(f"demo study written to {study_file}")
-    run_with_progress(study_file, trials=trials, workers=workers, console=out)
+    _exit_code(run_with_progress(study_file, trials=trials, workers=workers, console=out))
+
+
+def _exit_code(summary: RunSummary) -> None:
+    """130 after Ctrl-C; 1 when every trial this run finished failed (each one's error is in the record)."""
+    if summary.interrupted:
+        raise typer.Exit(code=130)
+    if summary.all_failed:
+        err.print(f"error: all {summary.ran['failed']} trials of this run failed; each one's error is in the "
+                  f"record (`volsweep show {summary.record_path} TRIAL`) and printed above", highlight=False)
+        raise typer.Exit(code=1)
 
 
 def _status(counts: dict, best) -> str:
@@ -86,6 +95,11 @@ def run_with_progress(study_file: Path, *, trials=None, workers=None, db=None, s
                     progress.console.print(f"trial {event.number} failed: {event.error}", highlight=False)
             elif isinstance(event, tuple) and event and event[0] == "crash":
                 progress.console.print(f"worker {event[1]} stopped: {event[2]}", highlight=False)
+            elif isinstance(event, tuple) and event and event[0] == "start":
+                # trials finished before this run count as done, not as speed: the time left is
+                # estimated from this run's trials only (none shown until one has finished)
+                progress.reset(task, total=n_target, completed=event[1], status=_status(counts, best[0]))
+                return
             done = sum(counts.values())
             progress.update(task, completed=done, status=_status(counts, best[0]))
 

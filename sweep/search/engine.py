@@ -44,6 +44,12 @@ class RunSummary:
     resumed: bool = False
     recovered: tuple[int, ...] = ()
     seconds: float = 0.0
+    ran: dict[str, int] = field(default_factory=dict)  # trials this run finished, by state
+
+    @property
+    def all_failed(self) -> bool:
+        """True when this run finished trials and every one of them failed."""
+        return sum(self.ran.values()) > 0 and self.ran.get("complete", 0) + self.ran.get("pruned", 0) == 0
 
 
 def default_record_path(spec_path: Path) -> Path:
@@ -234,7 +240,8 @@ def run_study(
             record on its first resume (the file is left as it was).
         n_trials: total trials the study should reach (default the spec's).
         n_workers: worker processes (default the spec's); 1 runs in this process.
-        on_event: called with each TrialOutcome (or a crash tuple) and the current counts.
+        on_event: called with ("start", finished trials) before the first trial, then with each
+            TrialOutcome (or a ("crash", worker, text) tuple), each time with the current counts.
 
     Returns:
         A RunSummary.
@@ -291,6 +298,9 @@ def _run(spec: StudySpec, tracker: Tracker, storage_object, storage_url: str, re
                                 load_if_exists=True)
     reason = "the worker running this trial stopped before it finished"
     recovered = _recover_orphans(study, storage_object, tracker, spec, reason)
+    before = count_states(study)
+    if on_event:
+        on_event(("start", sum(before.values())), before)
     interrupted = False
     remaining = max(0, n_target - _n_finished(study))
     if remaining:
@@ -304,7 +314,9 @@ def _run(spec: StudySpec, tracker: Tracker, storage_object, storage_url: str, re
             interrupted = True
         recovered += _recover_orphans(study, storage_object, tracker, spec, reason)
     completed = study.get_trials(deepcopy=False, states=(TrialState.COMPLETE,))
-    return RunSummary(spec.study.name, record_path, storage_url, n_target, counts=count_states(study),
+    counts = count_states(study)
+    return RunSummary(spec.study.name, record_path, storage_url, n_target, counts=counts,
+                      ran={state: counts[state] - before[state] for state in counts},
                       best=min((t.value for t in completed), default=None), interrupted=interrupted,
                       resumed=resumed, recovered=tuple(recovered), seconds=time.perf_counter() - t0)
 

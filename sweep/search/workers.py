@@ -47,9 +47,15 @@ def inputs_from_record(tracker: Tracker, study: StudyRecord) -> tuple[StudySpec,
 
 
 def count_states(study: optuna.Study) -> dict:
-    """Finished trials of the optuna study by state: complete, pruned, failed."""
+    """Finished trials of the optuna study by state: complete, pruned, failed.
+
+    Trials stopped by an interruption (Ctrl-C, a dead worker) are left out: their settings were queued
+    again and run as new trials, so the counts add up to the trials that use the study's budget.
+    """
     counts = {"complete": 0, "pruned": 0, "failed": 0}
     for t in study.get_trials(deepcopy=False, states=FINISHED_STATES):
+        if t.user_attrs.get("interrupted"):
+            continue
         key = {TrialState.COMPLETE: "complete", TrialState.PRUNED: "pruned"}.get(t.state, "failed")
         counts[key] += 1
     return counts

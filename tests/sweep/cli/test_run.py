@@ -8,7 +8,9 @@ import pytest
 from typer.testing import CliRunner
 
 from sweep.cli import app
+from sweep.study import set_keys
 from sweep.study.demo import demo_study_text, write_demo
+from trainers.scenario import write_market_csv
 
 FIXTURES = Path(__file__).parents[2] / "fixtures" / "prices"
 BAD_FILES = sorted(p for p in FIXTURES.glob("*.csv") if p.name != "good_small.csv")
@@ -54,3 +56,19 @@ def test_demo_writes_its_market_and_study(tmp_path):
     study_file = write_demo(tmp_path)
     assert study_file.read_text() == (Path(__file__).parents[3] / "studies" / "demo.toml").read_text()
     assert (tmp_path / "data" / "harbor_index.csv").exists()
+
+
+def test_run_exits_1_when_every_trial_of_the_run_failed(tmp_path):
+    # a learning rate this large makes every network diverge before its first finite score: each trial
+    # fails (with its error in the record), the run says so and exits 1, not 0
+    (tmp_path / "data").mkdir()
+    write_market_csv(tmp_path / "data", seed=3, n_days=700, instruments=["harbor_index"])
+    text = set_keys(demo_study_text(), name='"diverge"', trials="2", workers="1", max_epochs="12",
+                    file='"data/harbor_index.csv"', learning_rate="1e12", har_window="250")
+    (tmp_path / "diverge.toml").write_text(text, encoding="utf-8")
+    result = CliRunner().invoke(app, ["run", str(tmp_path / "diverge.toml"), "--no-board"])
+    assert result.exit_code == 1, result.output
+    assert "error: all 2 trials of this run failed" in result.stderr
+    # a later run that finishes no new trial (the budget is reached) is not a failure
+    again = CliRunner().invoke(app, ["run", str(tmp_path / "diverge.toml"), "--no-board"])
+    assert again.exit_code == 0, again.output

@@ -89,3 +89,14 @@ def test_count_states_counts_finished_trials_only():
 
 def test_count_states_of_an_empty_study_is_zero_for_each_state():
     assert count_states(optuna.create_study()) == {"complete": 0, "pruned": 0, "failed": 0}
+
+
+def test_count_states_leaves_out_interrupted_trials_whose_settings_ran_again():
+    # an interrupted trial is failed in optuna and queued again: the retry uses the budget, not both
+    study = optuna.create_study()
+    study.tell(study.ask(), 0.2)
+    stopped = study.ask()
+    stopped.set_user_attr("interrupted", True)
+    study.tell(stopped, state=TrialState.FAIL)
+    study.tell(study.ask(), 0.3)  # the retry
+    assert count_states(study) == {"complete": 2, "pruned": 0, "failed": 0}
