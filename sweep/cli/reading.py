@@ -95,7 +95,8 @@ def top(
     as_json: JsonOpt = False,
 ) -> None:
     """The ranking of a study's trials, with the baselines marked."""
-    report = top_report(open_record(db), study=study, n=n, sort=sort, states=state)
+    with open_record(db) as tracker:
+        report = top_report(tracker, study=study, n=n, sort=sort, states=state)
     rows = clean_json([r.to_dict() for r in report.rows])
     if as_json:
         print_json(rows)
@@ -107,7 +108,8 @@ def top(
 @handles_errors
 def list_studies(db: DbArg, as_json: JsonOpt = False) -> None:
     """The studies a record holds."""
-    report = list_report(open_record(db))
+    with open_record(db) as tracker:
+        report = list_report(tracker)
     if as_json:
         print_json(clean_json(report.to_list()))
         return
@@ -127,7 +129,8 @@ def show(
     as_json: JsonOpt = False,
 ) -> None:
     """One trial in full, with the study's provenance."""
-    report = show_report(open_record(db), trial, study=study)
+    with open_record(db) as tracker:
+        report = show_report(tracker, trial, study=study)
     if as_json:
         print_json(clean_json(report.to_dict()))
         return

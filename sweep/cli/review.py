@@ -26,7 +26,8 @@ def replay(db: DbArg, trial: TrialArg, study: StudyOpt = None, as_json: JsonOpt 
     """Retrain a recorded trial from the record and compare its learning curve epoch by epoch."""
     from sweep.review import replay_trial
 
-    report = replay_trial(open_record(db), trial, study=study)
+    with open_record(db) as tracker:
+        report = replay_trial(tracker, trial, study=study)
     if as_json:
         print_json(clean_json(report.to_dict()))
         return
@@ -55,7 +56,8 @@ def confirm(
     """Retrain the best trials on fresh seeds, record the spread, and say whether the ranking holds."""
     from sweep.review import confirm_trials
 
-    report = confirm_trials(open_record(db), study=study, top=top, n_seeds=seeds)
+    with open_record(db) as tracker:
+        report = confirm_trials(tracker, study=study, top=top, n_seeds=seeds)
     if as_json:
         print_json(clean_json(report.to_dict()))
         return
@@ -91,7 +93,8 @@ def holdout(
 
     command = f"volsweep holdout {db} {trial}" + (f" --study {study}" if study else "") + (" --again" if again else "")
     try:
-        report = holdout_trial(open_record(db), trial, study=study, again=again, command=command)
+        with open_record(db) as tracker:
+            report = holdout_trial(tracker, trial, study=study, again=again, command=command)
     except HoldoutAlreadyUsed as exc:
         if as_json:
             print_json({"refused": True, "previous": clean_json([h.to_dict() for h in exc.previous])})
@@ -127,7 +130,8 @@ def compare(
     from sweep.review import compare_forecasts
 
     command = f"volsweep compare {db} --window {window} --top {top} --reps {reps}" + (f" --study {study}" if study else "")
-    report = compare_forecasts(open_record(db), study=study, window=window, top=top, reps=reps, command=command)
+    with open_record(db) as tracker:
+        report = compare_forecasts(tracker, study=study, window=window, top=top, reps=reps, command=command)
     if as_json:
         print_json(clean_json(report.to_dict()))
         return
@@ -154,7 +158,8 @@ def note(
     """Add a dated decision note on a trial; notes are kept, never overwritten."""
     from sweep.review import add_decision_note
 
-    added = add_decision_note(open_record(db), trial, text, study=study, author=author)
+    with open_record(db) as tracker:
+        added = add_decision_note(tracker, trial, text, study=study, author=author)
     out.print(f"note on trial {added.trial} of study {added.study} recorded at {added.created}", highlight=False, markup=False)
 
 
@@ -164,7 +169,8 @@ def notes(db: DbArg, study: StudyOpt = None, as_json: JsonOpt = False) -> None:
     """The study's decision notes, oldest first."""
     from sweep.review import list_notes
 
-    found = list_notes(open_record(db), study=study)
+    with open_record(db) as tracker:
+        found = list_notes(tracker, study=study)
     if as_json:
         print_json(clean_json([n.to_dict() for n in found]))
         return
@@ -188,9 +194,9 @@ def predict(
 
     if out_file is not None:
         checked_out_file(out_file)
-    tracker = open_record(db)
-    ctx = open_study(tracker, study)
-    made = predict_file(ctx, tracker.load_trial(ctx.name, trial), prices)
+    with open_record(db) as tracker:
+        ctx = open_study(tracker, study)
+        made = predict_file(ctx, tracker.load_trial(ctx.name, trial), prices)
     line = (f"{made.rows} forecasts of trial {made.trial} ({made.first_date}..{made.last_date}); "
             f"network: {made.network}")
     if out_file is None:
@@ -213,7 +219,8 @@ def diff(
     """What differs between two studies: settings, data, windows, best objective, package versions."""
     from sweep.review import diff_studies
 
-    report = diff_studies(open_record(db), study_a, study_b)
+    with open_record(db) as tracker:
+        report = diff_studies(tracker, study_a, study_b)
     if as_json:
         print_json(clean_json(report.to_dict()))
         return

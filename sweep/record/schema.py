@@ -11,7 +11,9 @@ files written before it still open), and a file without it reads as holding no c
 from __future__ import annotations
 
 import contextlib
+import os
 import sqlite3
+import urllib.parse
 import time
 from pathlib import Path
 from typing import Iterator
@@ -112,9 +114,12 @@ CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
 
 
 
-def connect_file(path: Path, *, create: bool, shared: bool = False) -> sqlite3.Connection:
-    """A connection to the record file at ``path``: WAL journal, ``synchronous=NORMAL``, 30 s busy timeout.
+def connect_file(path: Path, *, create: bool, shared: bool = False) -> tuple[sqlite3.Connection, bool]:
+    """A connection to the record file at ``path`` and whether it is read-only.
 
+    A record that can be written gets a WAL journal, ``synchronous=NORMAL`` and a 30 s busy timeout. An
+    existing record in a folder or file that cannot be written (an archive, a reviewer's copy) is opened
+    read-only and immutable: every reading command works, and a write is refused by name.
     ``shared`` lets other threads use the connection (the caller serialises its use with a lock).
 
     Raises:
@@ -125,16 +130,21 @@ def connect_file(path: Path, *, create: bool, shared: bool = False) -> sqlite3.C
         raise RecordNotFound(f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one")
     if not path.parent.is_dir():
         raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
+    read_only = path.exists() and not create and not (os.access(path, os.W_OK) and os.access(path.parent, os.W_OK))
     conn = None
     try:
-        conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT, check_same_thread=not shared)
-        conn.execute("PRAGMA journal_mode=WAL")
-        conn.execute("PRAGMA synchronous=NORMAL")
+        if read_only:
+            uri = f"file:{urllib.parse.quote(str(path.resolve()))}?mode=ro&immutable=1"
+            conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT, check_same_thread=not shared)
+        else:
+            conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT, check_same_thread=not shared)
+            conn.execute("PRAGMA journal_mode=WAL")
+            conn.execute("PRAGMA synchronous=NORMAL")
     except sqlite3.DatabaseError as exc:
         if conn is not None:
             conn.close()
         raise (named_problem(str(path), exc) or RecordError(f"{path} is not a volsweep record: {exc}")) from exc
-    return conn
+    return conn, read_only
 
 
 def named_problem(location: str, exc: sqlite3.DatabaseError) -> RecordError | None:
@@ -170,11 +180,12 @@ def database_location(db) -> str:
     return ":memory:"
 
 
-def prepare_schema(db, location: str, *, create: bool) -> None:
+def prepare_schema(db, location: str, *, create: bool, read_only: bool = False) -> None:
     """Check that ``db`` is a volsweep record (upgrading an older one in place), or make the tables.
 
     With ``create``, the tables are made only in an empty database or one that holds optuna's tables alone;
-    a database holding anything else is refused and left as it was.
+    a database holding anything else is refused and left as it was. A ``read_only`` record of an older
+    schema is read as it is (schema 2 and later read the same way); it is upgraded when next opened for writing.
 
     Raises:
         RecordError: the database is not a volsweep record (and ``create`` is False, or it holds other
@@ -187,7 +198,7 @@ def prepare_schema(db, location: str, *, create: bool) -> None:
         raise (named_problem(location, exc) or RecordError(f"{location} is not a volsweep record: {exc}")) from exc
     others = sorted(t for t in tables - ENGINE_TABLES if not t.startswith("sqlite_"))
     if "vs_meta" in tables:
-        _check_schema(db, location, tables)
+        _check_schema(db, location, tables, read_only=read_only)
     elif create and not others:
         with write_transaction(db, location):
             db.executescript(_SCHEMA)
@@ -208,7 +219,7 @@ def prepare_schema(db, location: str, *, create: bool) -> None:
         )
 
 
-def _check_schema(db, location: str, tables: set[str]) -> None:
+def _check_schema(db, location: str, tables: set[str], *, read_only: bool = False) -> None:
     found = next(db.query("SELECT value FROM vs_meta WHERE key = 'schema_version'"), None)
     try:
         version = int(found["value"])
@@ -229,7 +240,11 @@ def _check_schema(db, location: str, tables: set[str]) -> None:
             f"{location} is not a volsweep record: tables missing: {', '.join(missing)}; "
             "the file may be damaged, use a backup copy"
         )
-    if version < SCHEMA_VERSION:
+    if version < SCHEMA_VERSION and read_only:
+        if version < 2:
+            raise RecordError(f"{location} is a read-only record of schema {version}, which must be upgraded before "
+                              "it can be read: copy it to a folder you can write and open the copy")
+    elif version < SCHEMA_VERSION:
         _upgrade(db, location, version)
 
 

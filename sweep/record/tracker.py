@@ -78,10 +78,11 @@ class Tracker:
         RecordError: the database is not a volsweep record or was written by a newer version.
     """
 
-    def __init__(self, db, *, create: bool = True):
+    def __init__(self, db, *, create: bool = True, read_only: bool = False):
         self.db = db
         self.location = database_location(db)
-        prepare_schema(db, self.location, create=create)
+        self.read_only = read_only
+        prepare_schema(db, self.location, create=create, read_only=read_only)
 
 
     @classmethod
@@ -93,9 +94,9 @@ class Tracker:
             RecordNotFound: ``path`` does not exist and ``create`` is False.
             RecordError: the file is not a volsweep record.
         """
-        conn = connect_file(Path(path), create=create, shared=shared)
+        conn, read_only = connect_file(Path(path), create=create, shared=shared)
         try:
-            tracker = cls(sqlite_utils.Database(conn), create=create)
+            tracker = cls(sqlite_utils.Database(conn), create=create, read_only=read_only)
         except BaseException:
             conn.close()
             raise

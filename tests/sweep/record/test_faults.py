@@ -106,3 +106,31 @@ def test_a_full_disk_during_a_run_leaves_the_record_as_it_was_and_the_next_run_r
         if not unmounted:
             subprocess.run(["umount", "-l", str(disk)], capture_output=True)
     assert unmounted, "a file in the record's folder was still open after the commands returned"
+
+
+def test_a_record_on_a_read_only_disk_opens_for_every_reading_command(tmp_path):
+    disk = tmp_path / "archive"
+    _mount_tmpfs(disk, 2048)
+    try:
+        shutil.copytree(RELEASE, disk / "release")  # a schema-2 record, read as it is
+        record = disk / "release" / "study.sqlite"
+        remount = subprocess.run(["mount", "-o", "remount,ro", str(disk)], capture_output=True, text=True)
+        assert remount.returncode == 0, remount.stderr
+        for args in (("top", record), ("list", record), ("show", record, 1), ("notes", record),
+                     ("board", record, "-o", tmp_path / "board.html")):
+            result = invoke(*args)
+            assert result.exit_code == 0, (args, result.output)
+        assert "trial" in invoke("top", record).stdout and (tmp_path / "board.html").stat().st_size > 0
+        # a command that writes is refused by name, and the file is as it was
+        note = invoke("note", record, 1, "chosen")
+        run = invoke("run", record.with_suffix(".toml"), "--trials", 8, "--no-board")
+        for result in (note, run):
+            assert_clean_exit(result)
+            assert result.exit_code == 1 and "read-only" in result.stderr and str(record) in result.stderr
+        with Tracker.open(record, create=False) as tracker:
+            assert tracker.read_only and len(tracker.load_trials(STUDY)) == 6
+    finally:
+        unmounted = subprocess.run(["umount", str(disk)], capture_output=True).returncode == 0
+        if not unmounted:
+            subprocess.run(["umount", "-l", str(disk)], capture_output=True)
+    assert unmounted, "a file on the read-only disk was still open after the commands returned"
