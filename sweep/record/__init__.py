@@ -8,6 +8,7 @@ was made.
 """
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
+from sweep.record.liveness import GRACE_SECONDS, HEARTBEAT_SECONDS
 from sweep.record.provenance import PACKAGES, code_version, collect_provenance, git_commit, package_versions
 from sweep.record.ranking import SORT_KEYS, baseline_row, rank_rows, trial_row
 from sweep.record.reports import (
@@ -23,6 +24,7 @@ from sweep.record.values import (
 )
 
 __all__ = [
+    "GRACE_SECONDS", "HEARTBEAT_SECONDS",
     "BASELINE_WINDOWS", "COMPARISON_WINDOWS", "DIRECTIONS", "PACKAGES", "SCHEMA_VERSION", "SORT_KEYS",
     "STOP_REASONS", "TRIAL_STATES", "BaselineRecord", "ComparisonRecord", "ConfirmRecord", "CurvePoint",
     "DatasetRecord", "DatasetSummary", "EpochRow", "HoldoutRecord", "NoteRecord", "RankRow", "RecordError",

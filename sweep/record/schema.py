@@ -49,7 +49,10 @@ _EPOCHS_TABLE = f"""CREATE TABLE IF NOT EXISTS vs_epochs (
     {_TRIAL_KEY}, fold INTEGER NOT NULL DEFAULT 0, epoch INTEGER NOT NULL, train_loss REAL,
     valid_loss REAL, valid_score REAL, seconds REAL, PRIMARY KEY (study, number, fold, epoch), {_TRIAL_FK});"""
 ENGINE_LOG_TABLE = "vs_engine_log"
-_ENGINE_LOG = f"""CREATE TABLE IF NOT EXISTS {ENGINE_LOG_TABLE} (number INTEGER PRIMARY KEY, entry TEXT NOT NULL);"""
+_ENGINE_LOG = f"""CREATE TABLE IF NOT EXISTS {ENGINE_LOG_TABLE} (number INTEGER PRIMARY KEY, entry TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS vs_workers (
+    id INTEGER PRIMARY KEY AUTOINCREMENT, study TEXT NOT NULL, host TEXT NOT NULL, pid INTEGER NOT NULL,
+    started TEXT NOT NULL, beat REAL NOT NULL, ended INTEGER NOT NULL DEFAULT 0);"""
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS vs_meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS vs_datasets (
@@ -100,7 +103,7 @@ ENGINE_TABLES = frozenset({
     "trial_user_attributes", "trial_values", "trials", "version_info",
 })
 TABLES = ("vs_meta", "vs_datasets", "vs_studies", "vs_trials", "vs_epochs", "vs_forecasts",
-          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes", ENGINE_LOG_TABLE)
+          "vs_weights", "vs_baselines", "vs_holdouts", "vs_confirmations", "vs_notes", ENGINE_LOG_TABLE, "vs_workers")
 
 
 COMPARISONS_TABLE = "vs_comparisons"
@@ -233,7 +236,7 @@ def _check_schema(db, location: str, tables: set[str], *, read_only: bool = Fals
             f"{location} was written by a newer volsweep (record schema {version}; this version "
             f"reads up to {SCHEMA_VERSION}); upgrade volsweep to open it"
         )
-    expected = TABLES if version >= 3 else [t for t in TABLES if t != ENGINE_LOG_TABLE]  # made by the upgrade
+    expected = TABLES if version >= 3 else [t for t in TABLES if t not in (ENGINE_LOG_TABLE, "vs_workers")]
     missing = [t for t in expected if t not in tables]
     if missing:
         raise RecordError(
@@ -261,7 +264,9 @@ def _upgrade(db, location: str, version: int) -> None:
             )
             db.execute("DROP TABLE vs_epochs_v1")
         if version < 3:  # the engine's log moves into the record (an old journal file is copied in on resume)
-            db.execute(_ENGINE_LOG)
+            for statement in _ENGINE_LOG.split(";"):  # and the workers' liveness rows
+                if statement.strip():
+                    db.execute(statement)
         db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
 
 

@@ -30,7 +30,7 @@ import numpy as np
 import sqlite_utils
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound
-from sweep.record import enginelog, reviews, rows
+from sweep.record import enginelog, liveness, reviews, rows
 from sweep.record.schema import (
     connect_file, database_location, named_problem, prepare_schema, require_study, require_trial, study_names,
     write_transaction,
@@ -430,6 +430,25 @@ class Tracker:
     def read_engine_log(self, start: int = 0) -> list[str]:
         """The engine log's entries from number ``start`` on (0: all), in the order they were written."""
         return enginelog.read_entries(self.db, start)
+
+    def transaction(self) -> contextlib.AbstractContextManager[None]:
+        """Hold the record's write lock for a block: other processes' writes wait until it ends, and this
+        tracker's own writes inside it join it (the engine claims a trial this way)."""
+        return self._transaction()
+
+    def register_worker(self, study: str) -> int:
+        """A liveness row for this process working on ``study``; returns the worker's id (unique in the record)."""
+        with self._transaction():
+            return liveness.register(self.db, study)
+
+    def beat_worker(self, worker: int, *, ended: bool = False) -> None:
+        """Say the worker is alive (or, with ``ended``, that it has stopped for good)."""
+        with self._transaction():
+            (liveness.end if ended else liveness.beat)(self.db, worker)
+
+    def worker_is_dead(self, worker: int) -> bool:
+        """True when the worker ended, its process is gone from this host, or its heartbeat is too old."""
+        return liveness.is_dead(self.db, worker)
 
     # ------------------------------------------------------------------ helpers
 

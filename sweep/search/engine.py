@@ -137,12 +137,18 @@ def _check_unchanged(old: StudyRecord, spec: StudySpec, sha256: str) -> None:
 def _recover_orphans(study: optuna.Study, storage, tracker: Tracker, spec: StudySpec, reason: str) -> list[int]:
     """Trials left RUNNING by a worker that died: fail them, record why, and queue their settings again.
 
+    A trial is taken from its worker only when that worker is known dead (`Tracker.worker_is_dead`: it
+    ended, its process is gone from this host, or its heartbeat is older than the grace period); a trial
+    with no worker mark was not asked by a volsweep worker of this release and counts as left behind.
     A worker that died after writing a trial's record but before telling optuna left a finished trial:
     optuna is then told what the record says, and nothing is run again.
     """
     numbers = []
     recorded = {r.number: r for r in tracker.load_trials(spec.study.name, states=("complete", "pruned"))}
     for t in study.get_trials(deepcopy=False, states=(TrialState.RUNNING,)):
+        worker = t.user_attrs.get("worker")
+        if worker is not None and not tracker.worker_is_dead(worker):
+            continue  # another live process is training it
         done = recorded.get(t.number)
         if done is not None:
             if done.state == "complete" and done.objective is not None:
@@ -304,7 +310,7 @@ def _run(spec: StudySpec, tracker: Tracker, storage_object, storage_url: str, re
     interrupted = False
     remaining = max(0, n_target - _n_finished(study))
     if remaining:
-        plan = WorkerPlan(str(record_path), storage_url, spec.study.name, 0)
+        plan = WorkerPlan(str(record_path), storage_url, spec.study.name, 0, n_target)
         try:
             if n_workers <= 1:
                 run_inline(plan, remaining, study, on_event)

@@ -184,7 +184,7 @@ def _trial_record(spec: StudySpec, trial_number, params, seed, state, results, s
 
 
 def run_trial(study: optuna.Study, spec: StudySpec, folds: list[StudyInputs] | StudyInputs, tracker: Tracker,
-              view: PruningView, *, stop=None) -> TrialOutcome:
+              view: PruningView, *, stop=None, trial: optuna.trial.Trial | None = None) -> TrialOutcome:
     """Ask the study for one trial, train it on every fold, record it, and tell the study how it ended.
 
     The record is written before optuna is told, so a trial optuna calls finished is always in the
@@ -200,13 +200,14 @@ def run_trial(study: optuna.Study, spec: StudySpec, folds: list[StudyInputs] | S
         view: the worker's `PruningView`; the pruner decides on it after every epoch.
         stop: optional object with `is_set()`; when set, the trial is left at the next epoch,
             recorded as failed with the error "interrupted", and its settings queued again.
+        trial: a trial already asked of the study (`sweep.search.workers.claim_trial`); None asks one.
 
     Returns:
         A TrialOutcome for the progress display.
     """
     folds = [folds] if isinstance(folds, StudyInputs) else list(folds)
     view.refresh(tracker, spec.study.name)
-    trial = study.ask()
+    trial = study.ask() if trial is None else trial
     started, t0 = _now(), time.perf_counter()
     seed = trial_seed(spec.study.seed, trial.number)
     params: dict = {}

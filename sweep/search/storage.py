@@ -7,10 +7,13 @@ through optuna's public `BaseJournalBackend`), so a study resumes from its recor
 
 from __future__ import annotations
 
+import contextlib
 import json
 import threading
+from collections.abc import Iterator
 from pathlib import Path
 
+import numpy as np
 import optuna
 from optuna.storages import JournalStorage
 from optuna.storages.journal import BaseJournalBackend, JournalFileBackend, JournalFileOpenLock
@@ -58,6 +61,14 @@ class RecordJournal(BaseJournalBackend):
         with self._lock:
             self._open().append_engine_log(entries)
 
+    @contextlib.contextmanager
+    def exclusive(self) -> Iterator[None]:
+        """Hold the record's write lock for a block: no other process appends until it ends."""
+        with self._lock:
+            tracker = self._open()
+        with tracker.transaction():
+            yield
+
     def close(self) -> None:
         """Close the connection (folding the record's WAL back into the file when it is the last one)."""
         with self._lock:
@@ -75,6 +86,10 @@ class RecordStorage(JournalStorage):
 
     def close(self) -> None:
         self.journal.close()
+
+    def exclusive(self) -> contextlib.AbstractContextManager[None]:
+        """Hold the record's write lock for a block (reading the study and asking a trial as one step)."""
+        return self.journal.exclusive()
 
 
 def close_storage(storage) -> None:
@@ -143,9 +158,16 @@ class _JournalFile(JournalFileBackend):
 
 
 def make_sampler(spec: StudySpec, worker: int = 0):
-    """The spec's sampler; each worker gets its own seed derived from the study seed."""
+    """The spec's sampler; each worker (an id unique in the record, from 1) gets its own seed.
+
+    The seed is ``study seed x 1000 + worker - 1`` (release 0.1's rule, so a one-worker study draws the
+    same settings); where that passes optuna's limit of 2**32 - 1, it is drawn from numpy's SeedSequence
+    of (study seed, worker) instead, so every study seed >= 0 works.
+    """
     search = spec.search
-    seed = int(spec.study.seed) * 1000 + worker
+    seed = int(spec.study.seed) * 1000 + max(int(worker) - 1, 0)
+    if seed > 2**32 - 1:
+        seed = int(np.random.SeedSequence([int(spec.study.seed), int(worker)]).generate_state(1)[0])
     if search.sampler == "tpe":
         return optuna.samplers.TPESampler(seed=seed, n_startup_trials=search.startup_trials)
     if search.sampler == "random":

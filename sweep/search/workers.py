@@ -18,14 +18,15 @@ import optuna
 from optuna.trial import TrialState
 from threadpoolctl import threadpool_limits
 
-from sweep.record import StudyRecord, Tracker
+from sweep.errors import RecordError
+from sweep.record import HEARTBEAT_SECONDS, StudyRecord, Tracker
 from sweep.search.objective import run_trial
 from sweep.search.pruning import PruningView
-from sweep.search.storage import close_storage, make_pruner, make_sampler, open_storage, percentile_rule
+from sweep.search.storage import RecordStorage, close_storage, make_pruner, make_sampler, open_storage, percentile_rule
 from sweep.study import StudyInputs, StudySpec, prepare_folds, spec_from_text
 from trainers.data import read_prices_csv_text
 
-__all__ = ["FINISHED_STATES", "POLL_SECONDS", "WorkerPlan", "count_states", "folds_from_record",
+__all__ = ["FINISHED_STATES", "POLL_SECONDS", "WorkerPlan", "claim_trial", "count_states", "folds_from_record",
            "inputs_from_record", "run_inline", "run_processes"]
 
 POLL_SECONDS = 0.2
@@ -67,28 +68,88 @@ class WorkerPlan:
     storage_url: str
     study_name: str
     worker: int
+    n_target: int = 0  # the study's budget for this run: finished trials (interrupted ones left out) + running
 
 
 def _limit_threads():
     return threadpool_limits(limits=1)
 
 
+class _Heartbeat(threading.Thread):
+    """Says every `HEARTBEAT_SECONDS` that a worker is alive, on a connection of its own."""
+
+    def __init__(self, record_path: str, worker: int):
+        super().__init__(name="volsweep-heartbeat", daemon=True)
+        self.record_path, self.worker = record_path, worker
+        self.done = threading.Event()
+
+    def run(self) -> None:
+        tracker = Tracker.open(self.record_path, create=False)
+        try:
+            while not self.done.wait(HEARTBEAT_SECONDS):
+                try:
+                    tracker.beat_worker(self.worker)
+                except RecordError:  # a busy or full record: the next beat tries again
+                    continue
+        finally:
+            tracker.close()
+
+    def stop(self) -> None:
+        self.done.set()
+        self.join(timeout=5)
+
+
+def claim_trial(study: optuna.Study, storage, n_target: int, worker: int, claim: Callable[[], bool]):
+    """Ask the study for a trial if its budget allows one more, marked with the worker that runs it.
+
+    With the engine's state in the record, reading the study and asking happen under the record's write
+    lock, so that processes on one study never overrun its budget: a trial is given while the finished
+    trials (interrupted ones left out) and the running ones number fewer than ``n_target``. With another
+    storage, ``claim`` (this run's own counter) decides.
+
+    Returns:
+        The optuna trial, or None when the budget is used.
+    """
+    if isinstance(storage, RecordStorage):
+        with storage.exclusive():
+            used = sum(1 for t in study.get_trials(deepcopy=False)
+                       if t.state == TrialState.RUNNING
+                       or (t.state in FINISHED_STATES and not t.user_attrs.get("interrupted")))
+            if used >= n_target:
+                return None
+            trial = study.ask()
+            trial.set_user_attr("worker", worker)
+            return trial
+    if not claim():
+        return None
+    trial = study.ask()
+    trial.set_user_attr("worker", worker)
+    return trial
+
+
 def _worker_loop(plan: WorkerPlan, claim: Callable[[], bool], stop, report) -> None:
     tracker = Tracker.open(plan.record_path, create=False)
     storage = open_storage(plan.storage_url, record_path=plan.record_path)
+    worker = tracker.register_worker(plan.study_name)
+    heartbeat = _Heartbeat(plan.record_path, worker)
+    heartbeat.start()
     try:
         study_record = tracker.find_study(plan.study_name)
         spec, folds = folds_from_record(tracker, study_record)
         optuna.logging.set_verbosity(optuna.logging.WARNING)
-        study = optuna.load_study(study_name=plan.study_name, storage=storage,
-                                  sampler=make_sampler(spec, plan.worker))
+        study = optuna.load_study(study_name=plan.study_name, storage=storage, sampler=make_sampler(spec, worker))
         view = PruningView(make_pruner(spec), rule=percentile_rule(spec), epochs_per_fold=spec.training.max_epochs)
-        while not stop.is_set() and claim():
-            outcome = run_trial(study, spec, folds, tracker, view, stop=stop)
+        while not stop.is_set():
+            trial = claim_trial(study, storage, plan.n_target, worker, claim)
+            if trial is None:
+                break
+            outcome = run_trial(study, spec, folds, tracker, view, stop=stop, trial=trial)
             report(outcome)
             if outcome.state == "interrupted":
                 raise KeyboardInterrupt
     finally:
+        heartbeat.stop()
+        tracker.beat_worker(worker, ended=True)
         close_storage(storage)
         tracker.close()
 
@@ -159,7 +220,7 @@ def run_processes(plan: WorkerPlan, remaining: int, n_workers: int, study: optun
     for w in range(1, min(n_workers, remaining)):
         p = ctx.Process(
             target=_worker_main,
-            args=(WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, w),
+            args=(WorkerPlan(plan.record_path, plan.storage_url, plan.study_name, w, plan.n_target),
                   slots, stop, events),
             name=f"volsweep-worker-{w}",
             daemon=True,

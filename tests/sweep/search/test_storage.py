@@ -131,14 +131,25 @@ def suggestions(sampler, space, n_trials: int = 6) -> list[dict]:
                                           ("random", optuna.samplers.RandomSampler)])
 def test_make_sampler_seeds_each_worker_apart_and_reproducibly(sampler, cls):
     spec = spec_with(sampler=f'"{sampler}"')
-    assert isinstance(make_sampler(spec, 0), cls)
-    first = suggestions(make_sampler(spec, 0), spec.space)
+    # worker ids are the record's liveness rows, from 1
+    assert isinstance(make_sampler(spec, 1), cls)
+    first = suggestions(make_sampler(spec, 1), spec.space)
     # the same study seed and worker draw the same settings again
-    assert suggestions(make_sampler(spec, 0), spec.space) == first
+    assert suggestions(make_sampler(spec, 1), spec.space) == first
     # another worker draws other settings, so two workers do not repeat each other's trials
-    assert suggestions(make_sampler(spec, 1), spec.space) != first
+    assert suggestions(make_sampler(spec, 2), spec.space) != first
     # another study seed draws other settings too
-    assert suggestions(make_sampler(spec_with(sampler=f'"{sampler}"', seed="8"), 0), spec.space) != first
+    assert suggestions(make_sampler(spec_with(sampler=f'"{sampler}"', seed="8"), 1), spec.space) != first
+
+
+def test_make_sampler_takes_any_study_seed_and_keeps_release_seeds_for_small_ones():
+    # optuna's samplers take seeds up to 2**32 - 1 (numpy's RandomState): a date-like study seed works too
+    big = spec_with(sampler='"random"', seed="20240607")
+    assert suggestions(make_sampler(big, 1), big.space) != suggestions(make_sampler(big, 2), big.space)
+    # small seeds keep release 0.1's rule, study seed x 1000 + worker index, so old studies draw alike
+    spec = spec_with(sampler='"random"')
+    assert suggestions(make_sampler(spec, 1), spec.space) == \
+        suggestions(optuna.samplers.RandomSampler(seed=spec.study.seed * 1000), spec.space)
 
 
 def test_make_sampler_qmc_shares_the_study_seed_across_workers():
@@ -154,7 +165,7 @@ def test_make_sampler_qmc_shares_the_study_seed_across_workers():
 def test_make_sampler_grid_visits_every_point_once_in_a_worker_order():
     spec = spec_with(sampler='"grid"', hidden_units="[4, 8]", layers="1", dropout="0.0",
                      learning_rate="[1e-3, 1e-2]", weight_decay="0.0")
-    sampler = make_sampler(spec, 0)
+    sampler = make_sampler(spec, 1)
     assert isinstance(sampler, optuna.samplers.GridSampler)
     # batch_size 3 x hidden_units 2 x patience 2 x learning_rate 2 = 24 points, each exactly once
     keys = ("batch_size", "hidden_units", "patience", "learning_rate")
@@ -162,7 +173,7 @@ def test_make_sampler_grid_visits_every_point_once_in_a_worker_order():
     assert len(set(seen)) == 24
     assert set(seen) == {(b, h, p, lr) for b in (32, 64, 128) for h in (4, 8) for p in (10, 20) for lr in (1e-3, 1e-2)}
     # each worker walks the grid in its own seeded order
-    other = [tuple(p[k] for k in keys) for p in suggestions(make_sampler(spec, 1), spec.space, n_trials=24)]
+    other = [tuple(p[k] for k in keys) for p in suggestions(make_sampler(spec, 2), spec.space, n_trials=24)]
     assert set(other) == set(seen) and other != seen
 
 
