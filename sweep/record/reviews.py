@@ -11,7 +11,8 @@ import dataclasses
 
 from sweep.errors import RecordError
 from sweep.record import rows
-from sweep.record.schema import COMPARISONS_SCHEMA, COMPARISONS_TABLE, require_study, require_trial
+from sweep.record.lookups import require_study, require_trial
+from sweep.record.schema import COMPARISONS_SCHEMA, COMPARISONS_TABLE
 from sweep.record.values import COMPARISON_WINDOWS, ComparisonRecord, ConfirmRecord, HoldoutRecord, NoteRecord
 
 __all__ = [

@@ -1,4 +1,4 @@
-"""The record's tables: the schema, its version, the upgrades of older records, and write transactions.
+"""The record's tables: the schema, its version, and the upgrades of older records.
 
 Our tables carry a ``vs_`` prefix so optuna's RDBStorage tables (``studies``, ``trials``,
 ``version_info``, ...) can share the file. Functions here work on the ``sqlite_utils.Database``
@@ -10,38 +10,18 @@ files written before it still open), and a file without it reads as holding no c
 
 from __future__ import annotations
 
-import contextlib
-import os
 import sqlite3
-import urllib.parse
-import time
-from pathlib import Path
-from typing import Iterator
 
-from sweep.errors import RecordError, RecordNotFound, StudyNotFound, TrialNotFound
+from sweep.errors import RecordError
+from sweep.record.connection import named_problem, write_transaction
 from sweep.record.values import utc_now
 
 __all__ = [
-    "BUSY_TIMEOUT",
-    "COMPARISONS_SCHEMA",
-    "COMPARISONS_TABLE",
-    "ENGINE_LOG_TABLE",
-    "ENGINE_TABLES",
-    "SCHEMA_VERSION",
-    "TABLES",
-    "connect_file",
-    "named_problem",
-    "database_location",
+    "COMPARISONS_SCHEMA", "COMPARISONS_TABLE", "ENGINE_LOG_TABLE", "ENGINE_TABLES", "SCHEMA_VERSION", "TABLES",
     "prepare_schema",
-    "require_study",
-    "require_trial",
-    "study_names",
-    "write_transaction",
 ]
 
 SCHEMA_VERSION = 3  # 2: epochs carry their walk-forward fold; 3: the engine's log lives in the record
-BUSY_TIMEOUT = 30.0
-POLL_SECONDS = 0.0005  # how often a writer tries again for the write lock
 _TRIAL_KEY = "study TEXT NOT NULL, number INTEGER NOT NULL"
 _TRIAL_FK = "FOREIGN KEY (study, number) REFERENCES vs_trials (study, number) ON DELETE CASCADE"
 _STUDY_FK = "study TEXT NOT NULL REFERENCES vs_studies (name) ON DELETE CASCADE"
@@ -115,72 +95,6 @@ CREATE TABLE IF NOT EXISTS {COMPARISONS_TABLE} (
 """
 
 
-
-
-def connect_file(path: Path, *, create: bool, shared: bool = False) -> tuple[sqlite3.Connection, bool]:
-    """A connection to the record file at ``path`` and whether it is read-only.
-
-    A record that can be written gets a WAL journal, ``synchronous=NORMAL`` and a 30 s busy timeout. An
-    existing record in a folder or file that cannot be written (an archive, a reviewer's copy) is opened
-    read-only and immutable: every reading command works, and a write is refused by name.
-    ``shared`` lets other threads use the connection (the caller serialises its use with a lock).
-
-    Raises:
-        RecordNotFound: ``path`` does not exist and ``create`` is False, or its folder does not exist.
-        RecordError: the file is not an SQLite database.
-    """
-    if not path.exists() and not create:
-        raise RecordNotFound(f"no record file at {path}; check the path, or run `volsweep run STUDY.toml` to make one")
-    if not path.parent.is_dir():
-        raise RecordNotFound(f"cannot create {path}: folder {path.parent} does not exist; create it first")
-    read_only = path.exists() and not create and not (os.access(path, os.W_OK) and os.access(path.parent, os.W_OK))
-    conn = None
-    try:
-        if read_only:
-            uri = f"file:{urllib.parse.quote(str(path.resolve()))}?mode=ro&immutable=1"
-            conn = sqlite3.connect(uri, uri=True, timeout=BUSY_TIMEOUT, check_same_thread=not shared)
-        else:
-            conn = sqlite3.connect(str(path), timeout=BUSY_TIMEOUT, check_same_thread=not shared)
-            conn.execute("PRAGMA journal_mode=WAL")
-            conn.execute("PRAGMA synchronous=NORMAL")
-    except sqlite3.DatabaseError as exc:
-        if conn is not None:
-            conn.close()
-        raise (named_problem(str(path), exc) or RecordError(f"{path} is not a volsweep record: {exc}")) from exc
-    return conn, read_only
-
-
-def named_problem(location: str, exc: sqlite3.DatabaseError) -> RecordError | None:
-    """The named error for an SQLite error a user can act on, or None for one that is a bug.
-
-    A damaged file, a full disk, a file or folder that cannot be written, and a lock held too long are
-    problems of the file or the machine: each gets one line naming the file and what to do.
-    """
-    text = str(exc)
-    if type(exc) is sqlite3.DatabaseError and "not a database" in text:
-        return RecordError(f"{location} is not a volsweep record: {text}; give the .sqlite file that "
-                           "`volsweep run` wrote")
-    if type(exc) is sqlite3.DatabaseError:  # "database disk image is malformed"
-        return RecordError(f"{location} is damaged ({text}); check it with `sqlite3 {location} 'PRAGMA "
-                           "integrity_check'` and restore a backup copy of the file")
-    if "disk is full" in text or "disk I/O error" in text:
-        return RecordError(f"cannot write {location}: {text}; the record is as it was before this write: free "
-                           "some space and run the same command again")
-    if "readonly" in text or "unable to open database file" in text:
-        return RecordError(f"cannot write {location}: {text}; the file or its folder is read-only: copy the "
-                           "record to a folder you can write, or run there")
-    if "database is locked" in text:
-        return RecordError(f"{location} is busy: another process held it for {BUSY_TIMEOUT:.0f} s; run again "
-                           "when it is done")
-    return None
-
-
-def database_location(db) -> str:
-    """The file behind ``db`` as given to SQLite, or ":memory:"."""
-    for r in db.conn.execute("PRAGMA database_list"):
-        if r[1] == "main":
-            return r[2] or ":memory:"
-    return ":memory:"
 
 
 def prepare_schema(db, location: str, *, create: bool, read_only: bool = False) -> None:
@@ -270,80 +184,3 @@ def _upgrade(db, location: str, version: int) -> None:
         db.execute("UPDATE vs_meta SET value = ? WHERE key = 'schema_version'", [str(SCHEMA_VERSION)])
 
 
-def _begin_immediate(conn: sqlite3.Connection, location: str) -> None:
-    """Take the write lock, polling every half millisecond while another process holds it.
-
-    SQLite's own busy handler sleeps 1, 2, 5, 10 ... 100 ms between tries; several worker processes
-    each writing a dozen short transactions per trial would lose most of their time in those sleeps.
-    """
-    timeout_ms = conn.execute("PRAGMA busy_timeout").fetchone()[0]  # the connection's own (30 s for a record)
-    deadline = time.monotonic() + timeout_ms / 1000
-    conn.execute("PRAGMA busy_timeout = 0")
-    try:
-        while True:
-            try:
-                conn.execute("BEGIN IMMEDIATE")
-                return
-            except sqlite3.OperationalError as exc:
-                if "locked" not in str(exc) and "busy" not in str(exc):
-                    raise
-                if time.monotonic() > deadline:
-                    raise RecordError(
-                        f"{location} is busy: {exc} (another process held the write lock for "
-                        f"{timeout_ms / 1000:g} s); retry when the other writer finishes"
-                    ) from exc
-                time.sleep(POLL_SECONDS)
-    finally:
-        conn.execute(f"PRAGMA busy_timeout = {timeout_ms}")
-
-
-@contextlib.contextmanager
-def write_transaction(db, location: str) -> Iterator[None]:
-    """One write transaction that takes the write lock first (``BEGIN IMMEDIATE``); nested calls join it.
-
-    Raises:
-        RecordError: another process held the write lock for longer than ``BUSY_TIMEOUT``.
-    """
-    conn = db.conn
-    if conn.in_transaction:
-        with db.atomic():
-            yield
-        return
-    _begin_immediate(conn, location)
-    try:
-        yield
-    except BaseException:
-        if conn.in_transaction:
-            conn.execute("ROLLBACK")
-        raise
-    else:
-        conn.execute("COMMIT")
-
-
-def study_names(db) -> list[str]:
-    """The studies of a record, oldest first."""
-    return [r["name"] for r in db.query("SELECT name FROM vs_studies ORDER BY created, name")]
-
-
-def require_study(db, location: str, name: str) -> None:
-    """Raise StudyNotFound, listing the studies there, unless the record holds study ``name``."""
-    if next(db.query("SELECT 1 AS x FROM vs_studies WHERE name = ?", [name]), None) is None:
-        names = study_names(db)
-        listed = ", ".join(names) if names else "none yet"
-        raise StudyNotFound(
-            f"no study named {name!r} in {location}; studies there: {listed} (see `volsweep list {location}`)"
-        )
-
-
-def require_trial(db, location: str, study: str, number: int) -> dict:
-    """The trial's row; StudyNotFound or TrialNotFound (with the numbers held) when it is not there."""
-    require_study(db, location, study)
-    found = next(db.query("SELECT * FROM vs_trials WHERE study = ? AND number = ?", [study, int(number)]), None)
-    if found is None:
-        span = next(db.query("SELECT COUNT(*) AS n, MIN(number) AS lo, MAX(number) AS hi FROM vs_trials "
-                             "WHERE study = ?", [study]))
-        held = f"{span['n']} trials, numbers {span['lo']}-{span['hi']}" if span["n"] else "no trials yet"
-        raise TrialNotFound(
-            f"study {study!r} in {location} has no trial {number} ({held}); see `volsweep list {location}`"
-        )
-    return found

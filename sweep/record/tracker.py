@@ -20,7 +20,6 @@ Example:
 from __future__ import annotations
 
 import contextlib
-import functools
 import sqlite3
 import zlib
 from pathlib import Path
@@ -31,10 +30,9 @@ import sqlite_utils
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound
 from sweep.record import enginelog, liveness, reviews, rows
-from sweep.record.schema import (
-    connect_file, database_location, named_problem, prepare_schema, require_study, require_trial, study_names,
-    write_transaction,
-)
+from sweep.record.connection import connect_file, database_location, names_sqlite_problems, write_transaction
+from sweep.record.lookups import require_study, require_trial, study_names, study_summaries
+from sweep.record.schema import prepare_schema
 from sweep.record.values import (
     BASELINE_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
     DatasetRecord, HoldoutRecord, NoteRecord, StudyRecord, TrialRecord, check_weights, utc_now,
@@ -43,29 +41,7 @@ from sweep.record.values import (
 __all__ = ["Tracker"]
 
 
-def _named_sqlite_problems(cls):
-    """Every public method of ``cls`` turns SQLite errors a user can act on into one named RecordError."""
-
-    def guarded(method):
-        @functools.wraps(method)
-        def wrapper(self, *args, **kwargs):
-            try:
-                return method(self, *args, **kwargs)
-            except sqlite3.DatabaseError as exc:
-                problem = named_problem(self.location, exc)
-                if problem is None:
-                    raise
-                raise problem from exc
-
-        return wrapper
-
-    for name, value in list(vars(cls).items()):
-        if not name.startswith("_") and callable(value):
-            setattr(cls, name, guarded(value))
-    return cls
-
-
-@_named_sqlite_problems
+@names_sqlite_problems
 class Tracker:
     """Reads and writes the record in one SQLite database.
 
@@ -172,35 +148,8 @@ class Tracker:
         return rows.row_study(self._one("SELECT * FROM vs_studies WHERE name = ?", [name]))
 
     def list_studies(self) -> list[dict]:
-        """One summary dict per study, oldest first.
-
-        Keys: ``name``, ``created``, ``objective``, ``direction``, ``n_trials``, ``trials`` (count per
-        state, every state listed), ``best_trial`` and ``best_objective`` (complete trials; None if
-        none), ``dataset`` (the source path), ``dataset_sha256``, ``n_rows``.
-        """
-        counts: dict[str, dict[str, int]] = {}
-        for r in self._all("SELECT study, state, COUNT(*) AS n FROM vs_trials GROUP BY study, state"):
-            counts.setdefault(r["study"], {})[r["state"]] = r["n"]
-        summaries = []
-        for s in self._all(
-            "SELECT s.name, s.created, s.objective, s.direction, s.dataset_sha256, d.source, d.n_rows "
-            "FROM vs_studies s JOIN vs_datasets d ON d.sha256 = s.dataset_sha256 ORDER BY s.created, s.name"
-        ):
-            order = "DESC" if s["direction"] == "maximize" else "ASC"
-            best = self._one(
-                "SELECT number, objective FROM vs_trials WHERE study = ? AND state = 'complete' AND "
-                f"objective IS NOT NULL ORDER BY objective {order}, number LIMIT 1",
-                [s["name"]],
-            )
-            by_state = {state: counts.get(s["name"], {}).get(state, 0) for state in TRIAL_STATES}
-            summaries.append({
-                "name": s["name"], "created": s["created"], "objective": s["objective"],
-                "direction": s["direction"], "n_trials": sum(by_state.values()), "trials": by_state,
-                "best_trial": best["number"] if best else None,
-                "best_objective": best["objective"] if best else None,
-                "dataset": s["source"], "dataset_sha256": s["dataset_sha256"], "n_rows": s["n_rows"],
-            })
-        return summaries
+        """One summary dict per study, oldest first (``sweep.record.schema.study_summaries``)."""
+        return study_summaries(self.db)
 
     def load_dataset(self, sha256: str) -> DatasetRecord:
         """The dataset with this SHA-256, rows included.

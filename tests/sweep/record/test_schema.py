@@ -13,7 +13,8 @@ import sqlite_utils
 
 from sample_records import make_dataset, make_study, make_trial
 from sweep.record import SCHEMA_VERSION, EpochRow, RecordError, Tracker
-from sweep.record.schema import TABLES, database_location, prepare_schema, write_transaction
+from sweep.record.connection import database_location, write_transaction
+from sweep.record.schema import TABLES, prepare_schema
 
 
 def tables_of(db) -> set[str]:
