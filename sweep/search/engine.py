@@ -282,9 +282,10 @@ def run_study(
             storage_object = open_storage(storage_url)  # a URL or file that cannot be opened fails here
         if tracker is None:
             tracker = Tracker.open(record_path)
-        if new is not None:
-            tracker.save_study(new.study, new.dataset)
-            tracker.record_baselines(new.baselines)
+        if new is not None:  # the study, its data rows and its baselines: one transaction, all or nothing
+            with tracker.transaction():
+                tracker.save_study(new.study, new.dataset)
+                tracker.record_baselines(new.baselines)
         if storage_url == RECORD_STORAGE:
             storage_object = open_storage(RECORD_STORAGE, record_path=record_path)
             if old is not None:

@@ -72,3 +72,14 @@ def test_run_exits_1_when_every_trial_of_the_run_failed(tmp_path):
     # a later run that finishes no new trial (the budget is reached) is not a failure
     again = CliRunner().invoke(app, ["run", str(tmp_path / "diverge.toml"), "--no-board"])
     assert again.exit_code == 0, again.output
+
+
+def test_run_takes_a_date_like_study_seed(tmp_path):
+    # the study file's checks accept any seed >= 0, and the engine uses every one of them
+    (tmp_path / "data").mkdir()
+    write_market_csv(tmp_path / "data", seed=3, n_days=700, instruments=["harbor_index"])
+    text = set_keys(demo_study_text(), name='"dated"', seed="20240607", trials="2", workers="1",
+                    max_epochs="10", file='"data/harbor_index.csv"', har_window="250")
+    (tmp_path / "dated.toml").write_text(text, encoding="utf-8")
+    result = CliRunner().invoke(app, ["run", str(tmp_path / "dated.toml"), "--no-board"])
+    assert result.exit_code == 0, result.output

@@ -11,15 +11,17 @@ import os
 import shutil
 from pathlib import Path
 
+import numpy as np
 import pytest
 from typer.testing import CliRunner
 
 from sweep.cli import app
-from sweep.errors import RecordError
-from sweep.record import Tracker
+from sweep.errors import RecordError, StudyNotFound
+from sweep.record import BaselineRecord, DatasetRecord, StudyRecord, Tracker, collect_provenance
 from sweep.search import run_study
-from sweep.study import load_spec, set_keys
+from sweep.study import load_spec, load_study_prices, set_keys
 from sweep.study.demo import demo_study_text
+from trainers.data import frame_to_csv_text
 from trainers.scenario import write_market_csv
 
 RELEASE = Path(__file__).resolve().parents[2] / "fixtures" / "records" / "release-0.1.0"
@@ -105,3 +107,26 @@ def test_a_release_record_without_its_journal_is_refused_and_left_as_it_was(rele
     with pytest.raises(RecordError, match=r"the engine's state of study 'release-fixture' is not in .*study.optuna.log"):
         run_study(load_spec(release / "study.toml"), record_path=record, n_trials=8, n_workers=1)
     assert _trials(record, "release-fixture") == before
+
+
+def test_one_record_transaction_keeps_a_study_and_its_baselines_together(project):
+    # run_study writes a new study, its data rows and its baselines in one `Tracker.transaction()`: a
+    # failure while writing the baselines (here, one naming a study the record does not hold) leaves no
+    # half-made study behind, so a kill between the two cannot leave a study without its baselines
+    spec = load_spec(project / "study.toml")
+    prices = load_study_prices(spec)
+    frame = prices.frame
+    dataset = DatasetRecord(sha256=prices.sha256, source=str(prices.source), n_rows=len(frame),
+                            first_date=str(frame.index[0].date()), last_date=str(frame.index[-1].date()),
+                            columns=list(frame.columns), csv_text=frame_to_csv_text(frame))
+    study = StudyRecord(name=spec.study.name, spec_text=spec.text, spec_hash=spec.spec_hash(),
+                        search_hash=spec.search_hash(), dataset_sha256=prices.sha256, objective="qlike",
+                        **collect_provenance())
+    stray = BaselineRecord(study="elsewhere", name="har", window="valid", objective=0.1, losses={}, params={},
+                           forecasts=np.zeros((1, 1)))
+    with Tracker.open(project / "study.sqlite") as tracker:
+        with pytest.raises(StudyNotFound):
+            with tracker.transaction():
+                tracker.save_study(study, dataset)
+                tracker.record_baselines([stray])
+        assert tracker.list_studies() == []
