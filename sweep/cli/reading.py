@@ -16,7 +16,7 @@ from sweep.cli.app import (
 )
 from sweep.record import list_report, show_report, top_report
 
-__all__ = ["baselines", "data", "features", "list_studies", "show", "top"]
+__all__ = ["baselines", "data", "export", "features", "list_studies", "show", "top"]
 
 
 @app.command()
@@ -145,3 +145,15 @@ def show(
               f"Python {s.python} on {s.platform}")
     if t.error:
         out.print(f"error: {t.error}", highlight=False)
+
+
+@app.command()
+@handles_errors
+def export(
+    db: DbArg,
+    out_file: Annotated[Path, typer.Option("-o", "--out", help="The new .sqlite file to write.", show_default=False)],
+) -> None:
+    """Write a consistent copy of a record to one new file, even while a run is writing to it."""
+    with open_record(db) as tracker:
+        path = tracker.export(out_file)
+    out.print(f"exported {db} to {path}", highlight=False, markup=False)

@@ -90,6 +90,31 @@ class Tracker:
             self.db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
         self.db.close()
 
+    def export(self, path: str | Path) -> Path:
+        """Write a consistent copy of the whole record to a new file, even while other processes write to it.
+
+        SQLite's online backup copies every page as of one moment; the copy is one self-contained file
+        (its journal folded in) that reopens, redraws and replays anywhere.
+
+        Raises:
+            RecordError: ``path`` exists already (an export never overwrites) or its folder does not.
+        """
+        path = Path(path)
+        if path.exists() or not path.parent.is_dir():
+            why = ("exists already (an export never overwrites)" if path.exists()
+                   else f"folder {path.parent} does not exist")
+            raise RecordError(f"cannot export {self.location} to {path}: {why}; give a new file name")
+        target = sqlite3.connect(str(path))
+        try:
+            self.db.conn.backup(target)
+            target.execute("PRAGMA journal_mode=DELETE")  # one file: no -wal beside it
+        except BaseException:
+            target.close()
+            path.unlink(missing_ok=True)
+            raise
+        target.close()
+        return path
+
     def __enter__(self):
         return self
 

@@ -4,6 +4,7 @@ real files, the record and optuna's view of it compared)."""
 
 from __future__ import annotations
 
+import sqlite3
 import subprocess
 import sys
 import time
@@ -11,7 +12,10 @@ from pathlib import Path
 
 import optuna
 import pytest
+from typer.testing import CliRunner
 
+from sweep import review
+from sweep.cli import app
 from sweep.record import Tracker
 from sweep.search import RECORD_STORAGE, open_storage, run_study
 from sweep.study import load_spec, set_keys
@@ -88,3 +92,32 @@ def test_a_second_process_leaves_the_first_ones_running_trial_alone(tmp_path):
     assert sorted(t.number for t in recorded) == [0, 1, 2]
     assert all(t.state == "complete" for t in recorded), [(t.number, t.state, t.error) for t in recorded]
     assert len({t.worker for t in recorded}) == 2
+
+
+def test_export_while_a_run_writes_gives_one_whole_file_that_replays(tmp_path):
+    study = _study(tmp_path, "live", trials="6", max_epochs="150", pruner='"none"', patience="[1000, 1001]")
+    record = tmp_path / "live.sqlite"
+    run_study(load_spec(study), record_path=record, n_trials=1, n_workers=1)
+    running = _volsweep("run", study, "--no-board")
+    try:
+        deadline = time.monotonic() + 60
+        while not any(t.state == optuna.trial.TrialState.RUNNING for t in _engine_trials(record, "live")):
+            assert time.monotonic() < deadline, "the run never started a trial"
+            time.sleep(0.2)
+        exported = tmp_path / "elsewhere" / "copy.sqlite"
+        exported.parent.mkdir()
+        result = CliRunner().invoke(app, ["export", str(record), "-o", str(exported)])
+        assert result.exit_code == 0, result.output
+    finally:
+        output = running.communicate(timeout=300)[0]
+    assert running.returncode == 0, output
+    # one self-contained file (SQLite's own integrity check), holding the trials finished by then
+    assert sorted(p.name for p in exported.parent.iterdir()) == ["copy.sqlite"]
+    assert sqlite3.connect(exported).execute("PRAGMA integrity_check").fetchone() == ("ok",)
+    with Tracker.open(exported, create=False) as copy:
+        finished = [t for t in copy.load_trials("live") if t.state == "complete"]
+        assert finished
+        assert review.replay_trial(copy, finished[0].number).identical
+    # an export never overwrites
+    again = CliRunner().invoke(app, ["export", str(record), "-o", str(exported)])
+    assert again.exit_code == 1 and "exists already" in again.stderr
