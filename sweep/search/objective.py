@@ -232,10 +232,7 @@ def run_trial(study: optuna.Study, spec: StudySpec, folds: list[StudyInputs] | S
         if state == "interrupted":
             raise KeyboardInterrupt
         if state == "complete" and finite_or_none(_aggregate(results, state)["objective"]) is None:
-            raise FloatingPointError(
-                f"training diverged before any finite validation score (stop reason "
-                f"{results[-1].stop_reason}); lower space.learning_rate or narrow its range"
-            )
+            state = "diverged"
     except KeyboardInterrupt:
         view.finish(trial.number, "failed")
         record = _trial_record(spec, trial.number, params, seed, "failed", results, started, t0,
@@ -255,6 +252,16 @@ def run_trial(study: optuna.Study, spec: StudySpec, folds: list[StudyInputs] | S
         study.tell(trial, state=optuna.trial.TrialState.FAIL)
         return TrialOutcome(trial.number, "failed", None, record.seconds, error.strip().splitlines()[-1])
 
+    if state == "diverged":  # no finite score at any epoch: failed, with its curve up to the divergence
+        view.finish(trial.number, "failed")
+        hint = (f"{results[-1].note or 'diverged: no finite validation score at any epoch'}; lower "
+                "space.learning_rate or narrow its range")
+        record = replace(_trial_record(spec, trial.number, params, seed, "failed", results, started, t0,
+                                       error=hint), stop_reason="diverged")
+        tracker.record_trial(record)
+        trial.set_user_attr("error", hint)
+        study.tell(trial, state=optuna.trial.TrialState.FAIL)
+        return TrialOutcome(trial.number, "failed", None, record.seconds, hint)
     record = _trial_record(spec, trial.number, params, seed, state, results, started, t0)
     view.finish(trial.number, state, record.objective)
     forecasts = None

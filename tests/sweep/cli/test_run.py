@@ -8,6 +8,7 @@ import pytest
 from typer.testing import CliRunner
 
 from sweep.cli import app
+from sweep.record import Tracker
 from sweep.study import set_keys
 from sweep.study.demo import demo_study_text, write_demo
 from trainers.scenario import write_market_csv
@@ -69,6 +70,11 @@ def test_run_exits_1_when_every_trial_of_the_run_failed(tmp_path):
     result = CliRunner().invoke(app, ["run", str(tmp_path / "diverge.toml"), "--no-board"])
     assert result.exit_code == 1, result.output
     assert "error: all 2 trials of this run failed" in result.stderr
+    # each is recorded as diverged, with its curve up to the divergence and the hint to lower the rate
+    with Tracker.open(tmp_path / "diverge.sqlite", create=False) as tracker:
+        trials = tracker.load_trials("diverge", with_epochs=True)
+    assert [(t.state, t.stop_reason) for t in trials] == [("failed", "diverged")] * 2
+    assert all(t.epochs and "lower space.learning_rate" in t.error and "Traceback" not in t.error for t in trials)
     # a later run that finishes no new trial (the budget is reached) is not a failure
     again = CliRunner().invoke(app, ["run", str(tmp_path / "diverge.toml"), "--no-board"])
     assert again.exit_code == 0, again.output
