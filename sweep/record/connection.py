@@ -19,7 +19,7 @@ from typing import Iterator
 from sweep.errors import RecordError, RecordNotFound
 
 __all__ = [
-    "BUSY_TIMEOUT", "POLL_SECONDS", "connect_file", "database_location", "named_problem", "names_sqlite_problems",
+    "BUSY_TIMEOUT", "POLL_SECONDS", "connect_file", "database_location", "export_copy", "named_problem", "names_sqlite_problems",
     "write_transaction",
 ]
 
@@ -163,3 +163,26 @@ def write_transaction(db, location: str) -> Iterator[None]:
         raise
     else:
         conn.execute("COMMIT")
+
+
+def export_copy(conn: sqlite3.Connection, location: str, path: Path) -> Path:
+    """Copy every page of the record behind ``conn`` as of one moment (SQLite's online backup) to a new
+    file at ``path``, its journal folded in: one self-contained file.
+
+    Raises:
+        RecordError: ``path`` exists already (an export never overwrites) or its folder does not.
+    """
+    if path.exists() or not path.parent.is_dir():
+        why = ("exists already (an export never overwrites)" if path.exists()
+               else f"folder {path.parent} does not exist")
+        raise RecordError(f"cannot export {location} to {path}: {why}; give a new file name")
+    target = sqlite3.connect(str(path))
+    try:
+        conn.backup(target)
+        target.execute("PRAGMA journal_mode=DELETE")  # one file: no -wal beside it
+    except BaseException:
+        target.close()
+        path.unlink(missing_ok=True)
+        raise
+    target.close()
+    return path

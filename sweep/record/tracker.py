@@ -30,12 +30,14 @@ import sqlite_utils
 
 from sweep.errors import RecordError, RecordNotFound, StudyNotFound
 from sweep.record import enginelog, liveness, reviews, rows
-from sweep.record.connection import connect_file, database_location, names_sqlite_problems, write_transaction
+from sweep.record.connection import (
+    connect_file, database_location, export_copy, names_sqlite_problems, write_transaction,
+)
 from sweep.record.lookups import require_study, require_trial, study_names, study_summaries
 from sweep.record.schema import prepare_schema
 from sweep.record.values import (
     BASELINE_WINDOWS, TRIAL_STATES, BaselineRecord, ComparisonRecord, ConfirmRecord,
-    DatasetRecord, HoldoutRecord, NoteRecord, StudyRecord, TrialRecord, check_weights, utc_now,
+    DatasetRecord, HoldoutRecord, NoteRecord, StudyRecord, TrialRecord, check_weights,
 )
 
 __all__ = ["Tracker"]
@@ -91,29 +93,13 @@ class Tracker:
         self.db.close()
 
     def export(self, path: str | Path) -> Path:
-        """Write a consistent copy of the whole record to a new file, even while other processes write to it.
-
-        SQLite's online backup copies every page as of one moment; the copy is one self-contained file
-        (its journal folded in) that reopens, redraws and replays anywhere.
+        """Write a consistent copy of the whole record to a new file (``connection.export_copy``), even while
+        other processes write to it; the copy reopens, redraws and replays anywhere.
 
         Raises:
             RecordError: ``path`` exists already (an export never overwrites) or its folder does not.
         """
-        path = Path(path)
-        if path.exists() or not path.parent.is_dir():
-            why = ("exists already (an export never overwrites)" if path.exists()
-                   else f"folder {path.parent} does not exist")
-            raise RecordError(f"cannot export {self.location} to {path}: {why}; give a new file name")
-        target = sqlite3.connect(str(path))
-        try:
-            self.db.conn.backup(target)
-            target.execute("PRAGMA journal_mode=DELETE")  # one file: no -wal beside it
-        except BaseException:
-            target.close()
-            path.unlink(missing_ok=True)
-            raise
-        target.close()
-        return path
+        return export_copy(self.db.conn, self.location, Path(path))
 
     def __enter__(self):
         return self
@@ -296,35 +282,6 @@ class Tracker:
         self._trial_row(study, number)
         found = self._one("SELECT npz FROM vs_weights WHERE study = ? AND number = ?", [study, int(number)])
         return None if found is None else rows.npz_to_arrays(found["npz"])
-
-    def mark_interrupted(self, study: str, numbers: Iterable[int] | None = None, *,
-                         reason: str | None = None) -> list[int]:
-        """Turn trials still "running" (their worker was killed) into "failed", with error text.
-
-        Args:
-            study: study name.
-            numbers: the trials to check; None checks every running trial of the study.
-            reason: error text to record; a default names the time.
-
-        Returns:
-            The numbers that were running and are now failed (others are left alone).
-        """
-        now = utc_now()
-        text = reason or f"interrupted: the worker stopped before the trial finished (found running at {now})"
-        with self._transaction():
-            self._require_study(study)
-            running = [r["number"] for r in self._all(
-                "SELECT number FROM vs_trials WHERE study = ? AND state = 'running' ORDER BY number", [study])]
-            if numbers is not None:
-                wanted = {int(n) for n in numbers}
-                running = [n for n in running if n in wanted]
-            for number in running:
-                self.db.execute(
-                    "UPDATE vs_trials SET state = 'failed', stop_reason = 'error', error = ?, "
-                    "finished = COALESCE(finished, ?) WHERE study = ? AND number = ?",
-                    [text, now, study, number],
-                )
-        return running
 
     # ------------------------------------------------------------------ reviews
 

@@ -196,16 +196,6 @@ def test_save_weights_rejects_object_arrays(tracker):
         tracker.save_weights("coastal", 0, {"cfg": np.array([{"a": 1}], dtype=object)})
 
 
-def test_mark_interrupted_fails_only_running_trials(tracker):
-    for number, state in enumerate(["running", "complete", "running", "running"]):
-        tracker.record_trial(make_trial(number, state=state, arrays=False))
-    assert tracker.mark_interrupted("coastal", [0, 1]) == [0]
-    assert tracker.mark_interrupted("coastal") == [2, 3]
-    states = [(t.state, t.stop_reason) for t in tracker.load_trials("coastal")]
-    assert states == [("failed", "error"), ("complete", "patience"), ("failed", "error"), ("failed", "error")]
-    assert tracker.load_trial("coastal", 0).error.startswith("interrupted: the worker stopped")
-
-
 # ---------------------------------------------------------------- baselines and reviews
 
 def test_record_baselines_round_trip_and_replace(tracker):
@@ -364,7 +354,6 @@ def test_empty_selections_are_empty(tracker):
     assert tracker.load_trials("coastal", states=[]) == []
     tracker.record_baselines([])
     assert tracker.load_baselines("coastal") == []
-    assert tracker.mark_interrupted("coastal", []) == []
     with pytest.raises(StudyNotFound, match="no study named 'inland'"):
         tracker.load_baselines("inland")
 
