@@ -19,7 +19,7 @@ from sweep.errors import RecordError, RecordNotFound, StudyChanged, StudyNotFoun
 from sweep.record import BaselineRecord, DatasetRecord, StudyRecord, Tracker, TrialRecord, collect_provenance
 from sweep.search.objective import trial_seed
 from sweep.search.storage import RECORD_STORAGE, close_storage, default_storage_path, open_storage
-from sweep.search.workers import FINISHED_STATES, WorkerPlan, count_states, run_inline, run_processes
+from sweep.search.workers import WorkerPlan, count_states, run_inline, run_processes
 from sweep.study import (
     WINDOW_NAMES, StudyInputs, StudySpec, compute_baselines, diff_specs, load_study_prices, prepare_folds,
     spec_from_text,
@@ -219,14 +219,6 @@ def _find_study(tracker: Tracker | None, name: str) -> StudyRecord | None:
         return None
 
 
-def _n_finished(study: optuna.Study) -> int:
-    return sum(
-        1
-        for t in study.get_trials(deepcopy=False, states=FINISHED_STATES)
-        if not t.user_attrs.get("interrupted")
-    )
-
-
 def run_study(
     spec: StudySpec,
     *,
@@ -309,7 +301,7 @@ def _run(spec: StudySpec, tracker: Tracker, storage_object, storage_url: str, re
     if on_event:
         on_event(("start", sum(before.values())), before)
     interrupted = False
-    remaining = max(0, n_target - _n_finished(study))
+    remaining = max(0, n_target - sum(before.values()))
     if remaining:
         plan = WorkerPlan(str(record_path), storage_url, spec.study.name, 0, n_target)
         try:

@@ -110,18 +110,16 @@ def claim_trial(study: optuna.Study, storage, n_target: int, worker: int, claim:
     Returns:
         The optuna trial, or None when the budget is used.
     """
-    if isinstance(storage, RecordStorage):
-        with storage.exclusive():
-            used = sum(1 for t in study.get_trials(deepcopy=False)
-                       if t.state == TrialState.RUNNING
-                       or (t.state in FINISHED_STATES and not t.user_attrs.get("interrupted")))
-            if used >= n_target:
-                return None
-            trial = study.ask()
-            trial.set_user_attr("worker", worker)
-            return trial
-    if not claim():
-        return None
+    if not isinstance(storage, RecordStorage):
+        return _ask(study, worker) if claim() else None
+    with storage.exclusive():
+        running = study.get_trials(deepcopy=False, states=(TrialState.RUNNING,))
+        if sum(count_states(study).values()) + len(running) >= n_target:
+            return None
+        return _ask(study, worker)
+
+
+def _ask(study: optuna.Study, worker: int) -> optuna.trial.Trial:
     trial = study.ask()
     trial.set_user_attr("worker", worker)
     return trial
