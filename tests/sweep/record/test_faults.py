@@ -7,9 +7,11 @@ Each test works on a copy of the release-0.1 fixture (6 trials of the invented m
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import subprocess
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -59,18 +61,27 @@ def test_a_damaged_record_gives_one_line_from_every_command(tmp_path, fraction):
         assert "damaged" in result.stderr or "not a volsweep record" in result.stderr
 
 
-def _mount_tmpfs(folder: Path, size_kb: int) -> None:
+@contextlib.contextmanager
+def _tmpfs(folder: Path, size_kb: int) -> Iterator[Path]:
+    """A small real tmpfs at ``folder`` for the block; after it, no file there may still be open."""
     folder.mkdir()
     done = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size_kb}k", "tmpfs", str(folder)],
                           capture_output=True, text=True)
     if done.returncode != 0:
-        pytest.skip(f"cannot mount a small tmpfs here ({done.stderr.strip()}); the full-disk test needs root")
+        pytest.skip(f"cannot mount a small tmpfs here ({done.stderr.strip()}); the test needs root")
+    try:
+        yield folder
+    finally:
+        # a file still open in the tmpfs (a connection left behind) makes the plain unmount fail
+        unmounted = subprocess.run(["umount", str(folder)], capture_output=True).returncode == 0
+        if not unmounted:
+            subprocess.run(["umount", "-l", str(folder)], capture_output=True)
+    assert unmounted, f"a file in {folder} was still open after the commands returned"
 
 
 def test_a_full_disk_during_a_run_leaves_the_record_as_it_was_and_the_next_run_resumes(tmp_path):
     disk = tmp_path / "disk"
-    _mount_tmpfs(disk, 1024)
-    try:
+    with _tmpfs(disk, 1024):
         project = disk / "release"
         shutil.copytree(RELEASE, project)
         record = project / "study.sqlite"
@@ -100,18 +111,11 @@ def test_a_full_disk_during_a_run_leaves_the_record_as_it_was_and_the_next_run_r
             after = {t.number: t for t in tracker.load_trials(STUDY)}
         assert all(after[n] == trial for n, trial in before.items())
         assert sum(t.state in ("complete", "pruned") for t in after.values()) >= 8
-    finally:
-        # a file still open in the tmpfs (a connection left behind) makes the plain unmount fail
-        unmounted = subprocess.run(["umount", str(disk)], capture_output=True).returncode == 0
-        if not unmounted:
-            subprocess.run(["umount", "-l", str(disk)], capture_output=True)
-    assert unmounted, "a file in the record's folder was still open after the commands returned"
 
 
 def test_a_record_on_a_read_only_disk_opens_for_every_reading_command(tmp_path):
     disk = tmp_path / "archive"
-    _mount_tmpfs(disk, 2048)
-    try:
+    with _tmpfs(disk, 2048):
         shutil.copytree(RELEASE, disk / "release")  # a schema-2 record, read as it is
         record = disk / "release" / "study.sqlite"
         remount = subprocess.run(["mount", "-o", "remount,ro", str(disk)], capture_output=True, text=True)
@@ -129,8 +133,3 @@ def test_a_record_on_a_read_only_disk_opens_for_every_reading_command(tmp_path):
             assert result.exit_code == 1 and "read-only" in result.stderr and str(record) in result.stderr
         with Tracker.open(record, create=False) as tracker:
             assert tracker.read_only and len(tracker.load_trials(STUDY)) == 6
-    finally:
-        unmounted = subprocess.run(["umount", str(disk)], capture_output=True).returncode == 0
-        if not unmounted:
-            subprocess.run(["umount", "-l", str(disk)], capture_output=True)
-    assert unmounted, "a file on the read-only disk was still open after the commands returned"

@@ -44,6 +44,15 @@ def _engine_trials(record: Path, name: str):
         storage.close()
 
 
+def _wait_for_a_running_trial(record: Path, name: str, proc: subprocess.Popen, seconds: float = 60) -> None:
+    """Until the process `proc` is training a trial of the study (it must still be running then)."""
+    deadline = time.monotonic() + seconds
+    while not any(t.state == optuna.trial.TrialState.RUNNING for t in _engine_trials(record, name)):
+        assert proc.poll() is None, f"the run ended before a trial of {name} was seen running"
+        assert time.monotonic() < deadline, f"no trial of {name} started within {seconds:g} s"
+        time.sleep(0.05)
+
+
 def _volsweep(*args) -> subprocess.Popen:
     return subprocess.Popen([sys.executable, "-m", "sweep.cli", *map(str, args)], stdout=subprocess.PIPE,
                             stderr=subprocess.STDOUT, text=True)
@@ -77,10 +86,7 @@ def test_a_second_process_leaves_the_first_ones_running_trial_alone(tmp_path):
     run_study(load_spec(study), record_path=record, n_trials=0, n_workers=1)
     first = _volsweep("run", study, "--no-board")
     try:
-        deadline = time.monotonic() + 60
-        while not any(t.state == optuna.trial.TrialState.RUNNING for t in _engine_trials(record, "pair")):
-            assert time.monotonic() < deadline, "the first process never started a trial"
-            time.sleep(0.2)
+        _wait_for_a_running_trial(record, "pair", first)
         # the second process joins while the first one trains: it recovers nothing and fails nothing
         summary = run_study(load_spec(study), record_path=record, n_workers=1)
         assert summary.recovered == ()
@@ -95,15 +101,12 @@ def test_a_second_process_leaves_the_first_ones_running_trial_alone(tmp_path):
 
 
 def test_export_while_a_run_writes_gives_one_whole_file_that_replays(tmp_path):
-    study = _study(tmp_path, "live", trials="6", max_epochs="150", pruner='"none"', patience="[1000, 1001]")
+    study = _study(tmp_path, "live", trials="4", max_epochs="600", pruner='"none"', patience="[1000, 1001]")
     record = tmp_path / "live.sqlite"
     run_study(load_spec(study), record_path=record, n_trials=1, n_workers=1)
     running = _volsweep("run", study, "--no-board")
     try:
-        deadline = time.monotonic() + 60
-        while not any(t.state == optuna.trial.TrialState.RUNNING for t in _engine_trials(record, "live")):
-            assert time.monotonic() < deadline, "the run never started a trial"
-            time.sleep(0.2)
+        _wait_for_a_running_trial(record, "live", running)
         exported = tmp_path / "elsewhere" / "copy.sqlite"
         exported.parent.mkdir()
         result = CliRunner().invoke(app, ["export", str(record), "-o", str(exported)])
