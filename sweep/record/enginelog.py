@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from sweep.record.schema import ENGINE_LOG_TABLE
 
-__all__ = ["append_entries", "count_entries", "read_entries"]
+__all__ = ["append_entries", "read_entries"]
 
 
 def append_entries(db, entries: list[str]) -> None:
@@ -23,7 +23,3 @@ def read_entries(db, start: int = 0) -> list[str]:
     """Every entry numbered ``start`` or later, in order."""
     return [row[0] for row in db.conn.execute(
         f"SELECT entry FROM {ENGINE_LOG_TABLE} WHERE number >= ? ORDER BY number", [int(start)])]
-
-
-def count_entries(db) -> int:
-    return db.conn.execute(f"SELECT COUNT(*) FROM {ENGINE_LOG_TABLE}").fetchone()[0]
